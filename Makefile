@@ -1,0 +1,36 @@
+# One-command set-up and use. Every target creates or updates the virtual environment first.
+PYTHON ?= python3
+VENV   ?= .venv
+BIN    := $(VENV)/bin
+STAMP  := $(VENV)/.installed
+OUT    ?= out
+
+.PHONY: run test lint serve bench clean samples
+
+$(STAMP): pyproject.toml
+	test -x $(BIN)/python || $(PYTHON) -m venv $(VENV)
+	$(BIN)/python -m pip install --quiet --upgrade pip
+	$(BIN)/python -m pip install --quiet -e ".[service,dev]"
+	touch $(STAMP)
+
+## make run: analyse the bundled sample layers and print a summary
+run: $(STAMP)
+	@mkdir -p $(OUT)
+	$(BIN)/rutwise demo --out-dir $(OUT)
+
+## make test: lint, type-check and run the whole test suite
+test: $(STAMP)
+	$(BIN)/ruff check geoops service tests bench sample_layers
+	$(BIN)/mypy
+	$(BIN)/python -m pytest -q -n 2
+
+## make serve: start the HTTP processing service on http://127.0.0.1:8000
+serve: $(STAMP)
+	$(BIN)/rutwise serve
+
+## make samples: rebuild the invented demo scenario in sample_layers/
+samples: $(STAMP)
+	$(BIN)/python sample_layers/make_samples.py
+
+clean:
+	rm -rf $(VENV) $(OUT) .pytest_cache .mypy_cache .ruff_cache

@@ -1,0 +1,220 @@
+"""Turn a raw rut (one input feature, possibly multi-part, in the local metric frame) into a
+clean, uniformly resampled, noise-aware smoothed track ready for inference.
+
+What it does: chain the parts of one feature into one line (gaps remembered), drop repeated
+vertices and one-vertex spikes, estimate the horizontal noise when none is stated, resample by
+arc length, smooth with a window chosen from the noise and the vertex spacing, and give tangents
+from the smoothed curve. It must not pair, orient or judge ruts.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+
+import numpy as np
+
+from .curves import Array, NearestOnPolyline, arc_length, drop_repeats, resample, smooth
+from .curves import turning_angles, unit_tangents
+from .errors import BadInput
+
+NDArrayBool = np.ndarray
+
+#: smallest and largest smoothing windows, metres  # common practice: a few tyre footprints
+MIN_WINDOW_M = 1.0
+MAX_WINDOW_M = 6.0
+
+
+@dataclass(frozen=True)
+class CleanRut:
+    """A cleaned rut in the local metric frame.
+
+    Attributes
+    ----------
+    xy
+        Smoothed points at uniform arc-length spacing ``step``, in the input's vertex order.
+    has_data
+        False for samples that fall inside a gap between parts (no observation there).
+    sigma
+        Horizontal noise (metres, one axis) used for smoothing: stated or estimated.
+    sigma_source
+        ``"stated"`` or ``"estimated"``.
+    window_m
+        Smoothing window, metres.
+    raw_length
+        Length of the raw line(s) without the gaps, metres.
+    raw_xy
+        The input vertices after joining parts and dropping repeats and spikes, unsmoothed.
+    """
+
+    xy: Array
+    step: float
+    has_data: NDArrayBool
+    sigma: float
+    sigma_source: str
+    window_m: float
+    raw_length: float
+    raw_xy: Array = field(repr=False)
+    tangents: Array = field(repr=False)
+    index: NearestOnPolyline = field(repr=False, compare=False)
+
+    @property
+    def length(self) -> float:
+        return self.index.length
+
+    @property
+    def window_pts(self) -> int:
+        return max(int(round(self.window_m / self.step)), 5)
+
+
+def chain_parts(parts: list[Array]) -> tuple[Array, Array]:
+    """Join the parts of one rut end to end, nearest ends first, reversing parts as needed.
+
+    Returns
+    -------
+    xy, gap_after
+        The joined vertices, and a boolean per vertex that is True where the segment starting
+        at that vertex bridges a gap between two parts.
+
+    Examples
+    --------
+    >>> a = np.array([[0.0, 0.0], [1.0, 0.0]])
+    >>> b = np.array([[3.0, 0.0], [2.0, 0.0]])
+    >>> xy, gap = chain_parts([a, b])
+    >>> xy[:, 0].tolist(), gap.tolist()
+    ([0.0, 1.0, 2.0, 3.0], [False, True, False, False])
+    """
+    parts = [p for p in parts if len(p) >= 2]
+    if not parts:
+        return np.empty((0, 2)), np.empty(0, dtype=bool)
+    lengths = [float(arc_length(p)[-1]) for p in parts]
+    order = sorted(range(len(parts)), key=lambda i: -lengths[i])
+    chain = [parts[order[0]]]
+    rest = [parts[i] for i in order[1:]]
+    while rest:
+        head, tail = chain[0][0], chain[-1][-1]
+        ends = np.array([[p[0], p[-1]] for p in rest])  # (k, 2, 2)
+        d_tail = np.hypot(*(ends - tail).transpose(2, 0, 1))  # (k, 2)
+        d_head = np.hypot(*(ends - head).transpose(2, 0, 1))
+        if d_tail.min() <= d_head.min():
+            k, e = np.unravel_index(np.argmin(d_tail), d_tail.shape)
+            p = rest.pop(int(k))
+            chain.append(p if e == 0 else p[::-1])
+        else:
+            k, e = np.unravel_index(np.argmin(d_head), d_head.shape)
+            p = rest.pop(int(k))
+            chain.insert(0, p if e == 1 else p[::-1])
+    gap = []
+    for i, p in enumerate(chain):
+        g = np.zeros(len(p), dtype=bool)
+        if i < len(chain) - 1:
+            g[-1] = True
+        gap.append(g)
+    return np.concatenate(chain), np.concatenate(gap)
+
+
+def drop_spikes(xy: Array, passes: int = 2) -> Array:
+    """Remove single-vertex spikes: a vertex where the line turns back sharply and turns
+    straight back again at a neighbour (a GNSS outlier), keeping real out-and-back turns.
+
+    Examples
+    --------
+    >>> line = np.array([[0.0, 0], [1, 0], [2, 0], [2.5, 3], [3, 0], [4, 0], [5, 0]])
+    >>> drop_spikes(line)[:, 1].tolist()
+    [0.0, 0.0, 0.0, 0.0, 0.0, 0.0]
+    """
+    for _ in range(passes):
+        if len(xy) < 4:
+            return xy
+        turn = np.abs(turning_angles(xy))  # at vertices 1..n-2
+        sharp = turn > 2.5
+        prev_sharp = np.concatenate([[False], turn[:-1] > 1.2])
+        next_sharp = np.concatenate([turn[1:] > 1.2, [False]])
+        spike = sharp & (prev_sharp | next_sharp)
+        # keep the sharpest vertex of a pair of sharp neighbours only
+        spike &= ~np.concatenate([[False], spike[:-1]])
+        if not spike.any():
+            return xy
+        keep = np.concatenate([[True], ~spike, [True]])
+        xy = xy[keep]
+    return xy
+
+
+def _window_for(sigma: float, spacing: float, length: float) -> float:
+    w = max(8.0 * spacing, 25.0 * sigma, MIN_WINDOW_M)
+    return float(min(w, MAX_WINDOW_M, max(length / 3.0, MIN_WINDOW_M)))
+
+
+def estimate_noise(raw: Array, smoothed: Array) -> float:
+    """Robust per-axis horizontal noise of raw vertices about a smoothed line, metres.
+
+    Uses the median perpendicular distance; for 2-D isotropic Gaussian noise with per-axis
+    sigma the perpendicular offset is N(0, sigma), whose absolute median is 0.6745 sigma.
+    """
+    d, _, _ = NearestOnPolyline(smoothed).query(raw)
+    return float(np.median(d) / 0.6745)
+
+
+def clean_rut(parts: list[Array], accuracy: float | None = None) -> CleanRut:
+    """Clean one rut given as one or more parts in the local metric frame.
+
+    Parameters
+    ----------
+    parts
+        ``(n, 2)`` vertex arrays, metres.
+    accuracy
+        Stated horizontal accuracy (one-sigma per axis, metres). Estimated when None.
+
+    Raises
+    ------
+    BadInput
+        When the rut has fewer than two distinct vertices.
+    """
+    cleaned_parts = [drop_spikes(drop_repeats(np.asarray(p, dtype=np.float64))) for p in parts]
+    xy, gap_after = chain_parts(cleaned_parts)
+    if len(xy) < 2:
+        raise BadInput("A rut has fewer than two distinct vertices.", "Remove or fix that line.")
+    keep = np.concatenate([[True], np.hypot(*np.diff(xy, axis=0).T) > 1e-9])
+    xy, gap_after = xy[keep], gap_after[keep]
+    s_raw = arc_length(xy)
+    seg = np.diff(s_raw)
+    gap_seg = gap_after[:-1]
+    raw_length = float(seg[~gap_seg].sum()) if len(seg) else 0.0
+    spacing = float(np.median(seg[~gap_seg])) if (~gap_seg).any() else float(s_raw[-1])
+    total = float(s_raw[-1])
+    if total <= 0:
+        raise BadInput("A rut has zero length.", "Remove or fix that line.")
+
+    if accuracy is not None and accuracy > 0:
+        sigma, source = float(accuracy), "stated"
+    else:
+        w0 = _window_for(0.0, spacing, total)
+        step0 = float(np.clip(min(w0 / 10.0, spacing / 2.0), 0.02, 0.5))
+        pts0, _ = resample(xy, step0)
+        sm0 = smooth(pts0, max(int(round(w0 / step0)), 5))
+        n_in_window = max(w0 / max(spacing, 1e-6), 5.0)
+        sigma = estimate_noise(xy, sm0) / np.sqrt(max(1.0 - 4.0 / n_in_window, 0.2))
+        source = "estimated"
+    window = _window_for(sigma, spacing, total)
+    step = float(np.clip(window / 12.0, 0.02, 0.5))
+    pts, s = resample(xy, step)
+    win_pts = max(int(round(window / step)), 5)
+    sm = smooth(pts, win_pts)
+    tangents = unit_tangents(sm, win_pts)
+    # samples inside a bridged gap carry no observation
+    gap_start = s_raw[:-1][gap_seg]
+    gap_end = s_raw[1:][gap_seg]
+    has_data = np.ones(len(s), dtype=bool)
+    for a, b in zip(gap_start, gap_end, strict=True):
+        has_data &= ~((s > a) & (s < b))
+    return CleanRut(
+        xy=sm,
+        step=float(s[1] - s[0]) if len(s) > 1 else step,
+        has_data=has_data,
+        sigma=float(sigma),
+        sigma_source=source,
+        window_m=window,
+        raw_length=raw_length,
+        raw_xy=xy,
+        tangents=tangents,
+        index=NearestOnPolyline(sm),
+    )

@@ -1,0 +1,279 @@
+"""Direction of travel and wheelbase from one pair of tracks (front and rear).
+
+The physics (kinematic bicycle model): the rear axle never slips sideways, so at every point of
+the rear track, the tangent followed one wheelbase forward in the direction of travel meets the
+front track (Finn, Mathematics Magazine 2004). For a candidate pair we test every hypothesis
+(which track is the rear one, which way it was driven), fit the wheelbase to each by least
+squares on a truncated (robust) loss, and compare the best fits of the two directions.
+
+This module works on :class:`geoops.clean.CleanRut` objects in a local metric frame. It never
+reads files, builds frames or groups ruts into passes.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+from scipy.optimize import minimize_scalar
+
+from .clean import CleanRut
+from .curves import Array
+
+#: plausible wheelbase range, metres  # common practice: child's bicycle to long truck/forwarder
+WHEELBASE_MIN_M = 0.4
+WHEELBASE_MAX_M = 12.0
+#: probability of the travel direction at or above which a pass is `decided`
+DECIDE_AT = 0.95
+#: chi-square 95 % quantile with one degree of freedom (profile-likelihood interval)
+CHI2_95_1DOF = 3.841458820694124  # source: chi-square distribution table, 1 dof, p = 0.95
+#: residual floor (m): digitising and numeric precision  # common practice
+RESIDUAL_FLOOR_M = 0.005
+#: largest log-odds reported; keeps confidences finite and below 1 - 1e-13
+MAX_LOG_ODDS = 30.0
+
+_GRID = np.geomspace(WHEELBASE_MIN_M, WHEELBASE_MAX_M, 48)
+
+
+@dataclass(frozen=True)
+class HypothesisFit:
+    """The best fit of one hypothesis.
+
+    ``rear`` is the index (0 or 1) of the track taken as the rear one; ``along`` is +1 when the
+    vehicle travelled in that track's vertex order, else -1; ``follows_first`` says whether the
+    travel direction follows the vertex order of track 0.
+    """
+
+    rear: int
+    along: int
+    follows_first: bool
+    wheelbase: float
+    mse: float
+    n_used: int
+
+
+@dataclass(frozen=True)
+class PairResult:
+    """Verdict on one candidate pair of tracks.
+
+    ``verdict`` is ``decided``, ``ambiguous``, ``undetermined`` or ``not_a_pair``.
+    ``follows_first`` is the travel direction relative to track 0's vertex order (None when not
+    decided); ``confidence`` the probability that it is right (0.5 when not decided);
+    ``p_follows_first`` the probability of that direction whatever the verdict;
+    ``same_order`` whether the two tracks' vertex orders run the same way.
+    """
+
+    def follows(self, track: int) -> bool | None:
+        """Whether travel follows the vertex order of track 0 or 1 (None when not decided)."""
+        if self.follows_first is None:
+            return None
+        return self.follows_first if track == 0 else self.follows_first == self.same_order
+
+    verdict: str
+    reason: str
+    rear: int | None
+    follows_first: bool | None
+    same_order: bool
+    confidence: float
+    p_follows_first: float
+    p_rear_first: float
+    wheelbase: float | None
+    wheelbase_low: float | None
+    wheelbase_high: float | None
+    residual: float
+    tolerance: float
+    n_eff: float
+    fits: tuple[HypothesisFit, ...]
+
+
+def _interp_bool(mask: np.ndarray, s: Array, step: float) -> np.ndarray:
+    i = np.clip(np.rint(s / step).astype(np.int64), 0, len(mask) - 1)
+    return np.asarray(mask[i], dtype=bool)
+
+
+def _alignment(a: CleanRut, b: CleanRut) -> tuple[float, np.ndarray]:
+    """Mean tangent dot product of a's samples against b where they overlap, and a's mask of
+    samples whose nearest point on b is interior (the overlap)."""
+    d, s, _ = b.index.query(a.xy)
+    edge = 2.0 * b.step
+    inside = (s > edge) & (s < b.length - edge) & a.has_data & _interp_bool(b.has_data, s, b.step)
+    if not inside.any():
+        return 0.0, inside
+    j = np.clip(np.rint(s[inside] / b.step).astype(np.int64), 0, len(b.tangents) - 1)
+    dots = np.einsum("ij,ij->i", a.tangents[inside], b.tangents[j])
+    return float(np.mean(dots)), inside
+
+
+class _Objective:
+    """Mean truncated squared miss of the tangent-extended rear points against the target."""
+
+    def __init__(self, rear: CleanRut, target: CleanRut, along: int, idx: np.ndarray, cap: float):
+        self.base = rear.xy[idx]
+        self.u = along * rear.tangents[idx]
+        self.target = target
+        self.cap2 = cap * cap
+        self.need = max(8, int(0.5 * len(idx)))
+        self.edge = 2.0 * target.step
+
+    def many(self, lengths: Array) -> tuple[Array, Array]:
+        m = len(self.base)
+        pts = (self.base[None, :, :] + lengths[:, None, None] * self.u[None, :, :]).reshape(-1, 2)
+        d, s, _ = self.target.index.query(pts)
+        t = self.target
+        valid = (s > self.edge) & (s < t.length - self.edge) & _interp_bool(t.has_data, s, t.step)
+        r = np.minimum(d * d, self.cap2)
+        valid = valid.reshape(len(lengths), m)
+        r = r.reshape(len(lengths), m)
+        count = valid.sum(axis=1)
+        mse = np.where(count >= self.need, (r * valid).sum(axis=1) / np.maximum(count, 1), np.inf)
+        return mse, count
+
+    def one(self, length: float) -> float:
+        return float(self.many(np.array([length]))[0][0])
+
+
+def _subsample(mask: np.ndarray, most: int) -> np.ndarray:
+    idx = np.flatnonzero(mask)
+    if len(idx) > most:
+        idx = idx[np.linspace(0, len(idx) - 1, most).round().astype(np.int64)]
+    return idx
+
+
+def _fit(obj_coarse: _Objective, obj_fine: _Objective) -> tuple[float, float, int]:
+    mse, _ = obj_coarse.many(_GRID)
+    if not np.isfinite(mse).any():
+        return float("nan"), float("inf"), 0
+    i = int(np.nanargmin(mse))
+    lo = _GRID[max(i - 1, 0)]
+    hi = _GRID[min(i + 1, len(_GRID) - 1)]
+    res = minimize_scalar(obj_fine.one, bounds=(lo, hi), method="bounded",
+                          options={"xatol": 1e-3 * _GRID[i]})
+    length = float(res.x)
+    best, count = obj_fine.many(np.array([length]))
+    grid_fine, _ = obj_fine.many(np.array([_GRID[i]]))
+    if grid_fine[0] < best[0]:
+        length, best = float(_GRID[i]), grid_fine
+    return length, float(best[0]), int(count[0])
+
+
+def _interval(obj: _Objective, length: float, mse0: float, scale: float) -> tuple[float, float]:
+    """95 % profile interval of the wheelbase: where n_eff*(mse-mse0)/sigma^2 <= chi2(0.95, 1)."""
+    grid = np.unique(np.concatenate([
+        np.geomspace(WHEELBASE_MIN_M, WHEELBASE_MAX_M, 60),
+        length * np.linspace(0.7, 1.3, 61),
+    ]))
+    grid = grid[(grid >= WHEELBASE_MIN_M) & (grid <= WHEELBASE_MAX_M)]
+    mse, _ = obj.many(grid)
+    chi = scale * (mse - mse0)
+    inside = np.isfinite(chi) & (chi <= CHI2_95_1DOF)
+    k = int(np.argmin(np.abs(grid - length)))
+    if not inside[k]:
+        inside[k] = True
+    lo_k = k
+    while lo_k > 0 and inside[lo_k - 1]:
+        lo_k -= 1
+    hi_k = k
+    while hi_k < len(grid) - 1 and inside[hi_k + 1]:
+        hi_k += 1
+
+    def edge(a: int, b: int) -> float:
+        # linear interpolation of the chi-square crossing between grid points a (in) and b (out)
+        ca, cb = chi[a], chi[b]
+        if not np.isfinite(cb) or cb == ca:
+            return float(grid[a])
+        f = (CHI2_95_1DOF - ca) / (cb - ca)
+        return float(grid[a] + np.clip(f, 0.0, 1.0) * (grid[b] - grid[a]))
+
+    low = WHEELBASE_MIN_M if lo_k == 0 else edge(lo_k, lo_k - 1)
+    high = WHEELBASE_MAX_M if hi_k == len(grid) - 1 else edge(hi_k, hi_k + 1)
+    return min(low, length), max(high, length)
+
+
+def _sigmoid(x: float) -> float:
+    return float(1.0 / (1.0 + np.exp(-np.clip(x, -MAX_LOG_ODDS, MAX_LOG_ODDS))))
+
+
+def solve_pair(first: CleanRut, second: CleanRut) -> PairResult:
+    """Test every front/rear hypothesis for two tracks and return a verdict.
+
+    Parameters
+    ----------
+    first, second
+        Cleaned tracks in one local metric frame; their vertex order carries no meaning.
+
+    Returns
+    -------
+    PairResult
+    """
+    tracks = (first, second)
+    align, overlap0 = _alignment(first, second)
+    _, overlap1 = _alignment(second, first)
+    sigma_pair = float(np.hypot(first.sigma, second.sigma))
+    tol_base = max(3.0 * sigma_pair, 0.05)
+    cap = 4.0 * tol_base
+    overlaps = (overlap0, overlap1)
+    empty = PairResult("not_a_pair", "no_overlap", None, None, align >= 0, 0.5, 0.5, 0.5, None, None, None,
+                       float("inf"), tol_base, 0.0, ())
+    if overlap0.sum() < 8 or overlap1.sum() < 8 or align == 0.0:
+        return empty
+    same_order = align > 0
+
+    fits: list[HypothesisFit] = []
+    objs: dict[tuple[int, int], _Objective] = {}
+    for rear_i in (0, 1):
+        rear, target = tracks[rear_i], tracks[1 - rear_i]
+        coarse_idx = _subsample(overlaps[rear_i], 400)
+        fine_idx = _subsample(overlaps[rear_i], 3000)
+        for along in (1, -1):
+            coarse = _Objective(rear, target, along, coarse_idx, cap)
+            fine = _Objective(rear, target, along, fine_idx, cap)
+            length, mse, n_used = _fit(coarse, fine)
+            follows_rear_order = along > 0
+            follows_first = follows_rear_order if rear_i == 0 else follows_rear_order == same_order
+            fits.append(HypothesisFit(rear_i, along, follows_first, length, mse, n_used))
+            objs[(rear_i, along)] = fine
+    finite = [f for f in fits if np.isfinite(f.mse)]
+    if not finite:
+        return empty
+    best = min(finite, key=lambda f: f.mse)
+    residual = float(np.sqrt(best.mse))
+    tolerance = tol_base + 0.01 * best.wheelbase
+    rear_track = tracks[best.rear]
+    target_track = tracks[1 - best.rear]
+    # residuals are correlated over the smoothing window: count windows, not samples
+    stride = overlaps[best.rear].sum() / max(len(objs[(best.rear, best.along)].base), 1)
+    used_length = best.n_used * rear_track.step * max(stride, 1.0)
+    n_eff = max(used_length / max(rear_track.window_m, target_track.window_m), 1.0)
+    scale = n_eff / max(best.mse, RESIDUAL_FLOOR_M**2)
+
+    def class_best(pred: object) -> float:
+        vals = [f.mse for f in finite if pred(f)]  # type: ignore[operator]
+        return min(vals) if vals else cap * cap
+
+    mse_fwd = class_best(lambda f: f.follows_first)
+    mse_bwd = class_best(lambda f: not f.follows_first)
+    p_first = _sigmoid(0.5 * scale * (mse_bwd - mse_fwd))
+    mse_r0 = class_best(lambda f: f.rear == 0)
+    mse_r1 = class_best(lambda f: f.rear == 1)
+    p_rear_first = _sigmoid(0.5 * scale * (mse_r1 - mse_r0))
+
+    if residual > tolerance:
+        return PairResult("not_a_pair", "misfit", None, None, same_order, 0.5, p_first, p_rear_first,
+                          None, None, None, residual, tolerance, n_eff, tuple(fits))
+    low, high = _interval(objs[(best.rear, best.along)], best.wheelbase, best.mse, scale)
+    at_bound = best.wheelbase < WHEELBASE_MIN_M * 1.05 or best.wheelbase > WHEELBASE_MAX_M / 1.05
+    open_interval = low <= WHEELBASE_MIN_M * 1.0001 or high >= WHEELBASE_MAX_M * 0.9999
+    identifiable = not at_bound and not open_interval and (high - low) <= 0.5 * best.wheelbase
+    p_dir = max(p_first, 1.0 - p_first)
+    rear_known = max(p_rear_first, 1 - p_rear_first) >= DECIDE_AT
+    wb = (best.wheelbase, low, high) if identifiable else (None, None, None)
+    if identifiable and p_dir >= DECIDE_AT:
+        return PairResult("decided", "", best.rear, p_first >= 0.5, same_order, p_dir, p_first, p_rear_first,
+                          *wb, residual, tolerance, n_eff, tuple(fits))
+    if identifiable:
+        return PairResult("ambiguous", "both_directions_fit", best.rear if rear_known else None,
+                          None, same_order, 0.5, p_first, p_rear_first, *wb, residual, tolerance, n_eff,
+                          tuple(fits))
+    return PairResult("undetermined", "too_little_curvature", best.rear if rear_known else None,
+                      None, same_order, 0.5, p_first, p_rear_first, *wb, residual, tolerance, n_eff,
+                      tuple(fits))

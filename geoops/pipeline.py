@@ -1,0 +1,321 @@
+"""The analysis pipeline: read -> frame -> clean -> pair -> infer -> attribute -> write.
+
+:func:`analyze_layer` and :func:`analyze_file` return an :class:`AnalysisResult` holding the
+``passes`` and ``ruts`` records of the output contract in the local metric frame;
+:func:`write_result` writes them (GeoPackage or GeoJSON) in the requested CRS, and
+:func:`result_layers` gives them as :class:`geoops.io.OutputLayer` for other writers (the HTTP
+service). No HTTP, no printing here.
+"""
+
+from __future__ import annotations
+
+import datetime as _dt
+import json
+import os
+from dataclasses import asdict, dataclass, field
+from pathlib import Path
+from typing import Any
+
+import numpy as np
+import pyproj
+import shapely
+
+from . import __version__
+from .clean import CleanRut, clean_rut
+from .curves import Array, as_linestrings, curvature
+from .errors import BadInput, CrsError
+from .frame import LocalFrame, build_frame, resolve_crs
+from .inference import PairResult
+from .io import InputLayer, OutputLayer, read_layer, write_geojson, write_geopackage
+from .pairing import choose_pairs
+from .vehicles import suggest_class
+
+CAUTION = (
+    "rutwise results are estimates computed from line geometry. Where they feed an "
+    "investigation, an enforcement action or a safety decision, a qualified examiner must "
+    "interpret them, and local law and licensed practice decide. Do not walk active machine "
+    "routes or unstable ground to collect data."
+)
+GEAR_ASSUMPTION = (
+    "gear: the geometry fixes which end of the vehicle was in front, not whether it was driven "
+    "forwards; a pass without cusps is assumed to have been driven forward."
+)
+
+#: contract field types, in order (design section 4)
+PASS_FIELDS = {
+    "pass_id": "int", "verdict": "text", "confidence": "real", "wheelbase_m": "real",
+    "wheelbase_low_m": "real", "wheelbase_high_m": "real", "track_width_m": "real",
+    "wheel_tracks": "int", "vehicle_class": "text", "gear": "text", "reversals": "int",
+    "min_turn_radius_m": "real", "max_steer_deg": "real", "residual_m": "real",
+    "length_m": "real", "rut_ids": "text", "source_fids": "text",
+}
+RUT_FIELDS = {
+    "rut_id": "int", "pass_id": "int", "wheel": "text", "verdict": "text", "reason": "text",
+    "source_fids": "text", "length_m": "real",
+}
+
+
+@dataclass(frozen=True)
+class AnalyzeOptions:
+    """Options of one analysis; the CLI and the service map their arguments onto these."""
+
+    layer: str | None = None
+    crs: str | None = None
+    out_crs: str | None = None
+    accuracy: float | None = None
+    id_field: str | None = None
+    accuracy_field: str | None = None
+
+    def __post_init__(self) -> None:
+        if self.accuracy is not None and not (0 < self.accuracy < 1000):
+            raise BadInput(f"accuracy must be a positive number of metres, got {self.accuracy}.",
+                           "Give the horizontal accuracy (one sigma) in metres, e.g. 0.02.")
+
+
+@dataclass
+class PassRecord:
+    pass_id: int
+    verdict: str
+    confidence: float
+    wheelbase_m: float | None
+    wheelbase_low_m: float | None
+    wheelbase_high_m: float | None
+    track_width_m: float | None
+    wheel_tracks: int
+    vehicle_class: str
+    gear: str
+    reversals: int
+    min_turn_radius_m: float | None
+    max_steer_deg: float | None
+    residual_m: float
+    length_m: float
+    rut_ids: str
+    source_fids: str
+    geometry: Array = field(repr=False)  # local frame, vertex order = travel when decided
+
+
+@dataclass
+class RutRecord:
+    rut_id: int
+    pass_id: int | None
+    wheel: str
+    verdict: str
+    reason: str | None
+    source_fids: str
+    length_m: float
+    geometry: Array = field(repr=False)  # local frame
+
+
+@dataclass
+class AnalysisResult:
+    passes: list[PassRecord]
+    ruts: list[RutRecord]
+    frame: LocalFrame
+    source_crs: pyproj.CRS
+    metadata: dict[str, str]
+    warnings: list[str]
+
+
+def _rear_attributes(rut: CleanRut, wheelbase: float | None) -> tuple[float | None, float | None]:
+    """Minimum turning radius of the rear path and the largest steering angle it implies."""
+    k = np.abs(curvature(rut.tangents, rut.step))[rut.has_data]
+    if len(k) < 5:
+        return None, None
+    # the 98th percentile ignores the last noise spikes of the curvature estimate
+    kmax = float(np.percentile(k, 98))
+    radius = 1.0 / kmax if kmax > 1e-4 else None
+    steer = float(np.degrees(np.arctan(wheelbase * kmax))) if wheelbase is not None else None
+    return radius, steer
+
+
+def _make_pass(pass_id: int, i: int, j: int, res: PairResult, ruts: list[CleanRut],
+               ids: list[str]) -> tuple[PassRecord, dict[int, tuple[str, bool]]]:
+    """A pass record from a judged pair (tracks i, j), and per rut: wheel label, reverse it?"""
+    tracks = (i, j)
+    rear_pos = res.rear if res.rear is not None else 0
+    rear = ruts[tracks[rear_pos]]
+    decided = res.verdict == "decided"
+    geom = rear.xy if not decided or res.follows(rear_pos) else rear.xy[::-1]
+    flips: dict[int, tuple[str, bool]] = {}
+    for pos, k in enumerate(tracks):
+        wheel = "unassigned" if res.rear is None else ("rear" if pos == res.rear else "front")
+        flips[k] = (wheel, decided and not res.follows(pos))
+    radius, steer = _rear_attributes(rear, res.wheelbase)
+    tol = max(rear.sigma, 0.005)
+    simple = shapely.get_coordinates(shapely.simplify(shapely.LineString(geom), tol * 0.5))
+    record = PassRecord(
+        pass_id=pass_id,
+        verdict=res.verdict,
+        confidence=res.confidence if decided else 0.5,
+        wheelbase_m=res.wheelbase,
+        wheelbase_low_m=res.wheelbase_low,
+        wheelbase_high_m=res.wheelbase_high,
+        track_width_m=None,
+        wheel_tracks=2,
+        vehicle_class=suggest_class(res.wheelbase, None, True),
+        gear="forward",
+        reversals=0,
+        min_turn_radius_m=radius,
+        max_steer_deg=steer,
+        residual_m=res.residual,
+        length_m=float(rear.raw_length),
+        rut_ids="",
+        source_fids=",".join(ids[k] for k in sorted(tracks)),
+        geometry=simple,
+    )
+    return record, flips
+
+
+def analyze_layer(layer: InputLayer, options: AnalyzeOptions = AnalyzeOptions()
+                  ) -> AnalysisResult:
+    """Run the whole analysis on a layer already read from a file."""
+    crs = resolve_crs(layer.crs, options.crs)
+    xy_all = layer.all_xy()
+    frame, warnings = build_frame(xy_all[:, 0], xy_all[:, 1], crs)
+    warnings = list(layer.warnings) + list(warnings)
+    accuracies = _accuracies(layer, options)
+    ruts: list[CleanRut] = []
+    rut_ids: list[int] = []
+    ruts_out: list[RutRecord] = []
+    bad: list[tuple[int, str]] = []
+    for k, parts in enumerate(layer.parts):
+        local = [np.column_stack(frame.to_local(p[:, 0], p[:, 1])) for p in parts]
+        try:
+            ruts.append(clean_rut(local, accuracies[k]))
+            rut_ids.append(k)
+        except BadInput as exc:
+            bad.append((k, exc.message))
+    pairing = choose_pairs(ruts)
+    passes: list[PassRecord] = []
+    labels: dict[int, tuple[int, str, bool, str]] = {}
+    for n, (a, b, res) in enumerate(pairing.pairs, start=1):
+        record, flips = _make_pass(n, a, b, res, ruts, [layer.ids[r] for r in rut_ids])
+        record.rut_ids = ",".join(str(rut_ids[k] + 1) for k in sorted((a, b)))
+        passes.append(record)
+        for k, (wheel, reverse) in flips.items():
+            labels[k] = (n, wheel, reverse, res.verdict)
+    for k, rut in enumerate(ruts):
+        src = rut_ids[k]
+        if k in labels:
+            pid, wheel, reverse, verdict = labels[k]
+            geom = rut.raw_xy[::-1] if reverse else rut.raw_xy
+            ruts_out.append(RutRecord(src + 1, pid, wheel, verdict, None, layer.ids[src],
+                                      rut.raw_length, geom))
+        else:
+            ruts_out.append(RutRecord(src + 1, None, "unassigned", "unpaired",
+                                      pairing.unpaired.get(k, "no_partner"), layer.ids[src],
+                                      rut.raw_length, rut.raw_xy))
+    for k, message in bad:
+        xy = np.column_stack(frame.to_local(*np.concatenate(layer.parts[k]).T))
+        ruts_out.append(RutRecord(k + 1, None, "unassigned", "unpaired", "degenerate_line",
+                                  layer.ids[k], 0.0, xy))
+        warnings.append(f"Feature {layer.ids[k]}: {message}")
+    ruts_out.sort(key=lambda r: r.rut_id)
+    for fid, reason in layer.skipped:
+        warnings.append(f"Feature {fid} skipped: {reason.replace('_', ' ')}.")
+    metadata = _metadata(layer, options, frame, crs, ruts, warnings, len(passes))
+    return AnalysisResult(passes, ruts_out, frame, crs, metadata, warnings)
+
+
+def _accuracies(layer: InputLayer, options: AnalyzeOptions) -> list[float | None]:
+    n = len(layer)
+    if options.accuracy_field is None:
+        return [options.accuracy] * n
+    if options.accuracy_field not in layer.fields:
+        raise BadInput(f"No attribute {options.accuracy_field!r} for the accuracy; the layer has: "
+                       f"{', '.join(layer.fields) or 'none'}.",
+                       "Name one of those with --accuracy-field.")
+    out: list[float | None] = []
+    for v in layer.fields[options.accuracy_field]:
+        try:
+            f = float(v)
+        except (TypeError, ValueError):
+            f = float("nan")
+        out.append(f if np.isfinite(f) and f > 0 else options.accuracy)
+    return out
+
+
+def _metadata(layer: InputLayer, options: AnalyzeOptions, frame: LocalFrame, crs: pyproj.CRS,
+              ruts: list[CleanRut], warnings: list[str], n_passes: int) -> dict[str, str]:
+    sig = [r.sigma for r in ruts]
+    est = [r.sigma for r in ruts if r.sigma_source == "estimated"]
+    return {
+        "tool": "rutwise",
+        "version": __version__,
+        "created_utc": _dt.datetime.now(_dt.UTC).replace(microsecond=0).isoformat(),
+        "input": os.path.basename(layer.path),
+        "input_layer": layer.layer,
+        "input_crs": crs.to_string(),
+        "options": json.dumps({k: v for k, v in asdict(options).items() if v is not None}),
+        "local_frame": json.dumps(frame.describe()),
+        "ruts_read": str(len(layer)),
+        "passes_found": str(n_passes),
+        "noise_sigma_m": (f"median {np.median(sig):.4f}" if sig else "n/a")
+        + (f" ({len(est)} of {len(sig)} estimated from the data)" if est else " (stated)"),
+        "assumptions": GEAR_ASSUMPTION,
+        "warnings": json.dumps(warnings),
+        "caution": CAUTION,
+    }
+
+
+def analyze_file(path: str | os.PathLike[str], options: AnalyzeOptions = AnalyzeOptions()
+                 ) -> AnalysisResult:
+    """Read a layer from ``path`` and analyse it."""
+    layer = read_layer(path, layer=options.layer, id_field=options.id_field)
+    return analyze_layer(layer, options)
+
+
+def _target_crs(result: AnalysisResult, out_crs: str | None, geojson: bool) -> pyproj.CRS:
+    if geojson:
+        return pyproj.CRS.from_epsg(4326)
+    if out_crs is None:
+        return result.source_crs
+    try:
+        return pyproj.CRS.from_user_input(out_crs)
+    except pyproj.exceptions.CRSError:
+        raise CrsError(f"Unknown output CRS {out_crs!r}.",
+                       "Give an EPSG code such as EPSG:27700, or a WKT/PROJ definition.") from None
+
+
+def _to_geoms(arrays: list[Array], frame: LocalFrame, crs: pyproj.CRS) -> np.ndarray:
+    out = []
+    for xy in arrays:
+        x, y = frame.from_local(xy[:, 0], xy[:, 1], crs)
+        out.append(np.column_stack([x, y]))
+    return as_linestrings(out)
+
+
+def result_layers(result: AnalysisResult, crs: pyproj.CRS) -> list[OutputLayer]:
+    """The ``passes`` and ``ruts`` layers with geometries in ``crs``."""
+    def fields(records: list[Any], spec: dict[str, str]) -> dict[str, list[Any]]:
+        return {name: [getattr(r, name) for r in records] for name in spec}
+
+    passes = OutputLayer("passes", _to_geoms([p.geometry for p in result.passes], result.frame,
+                                             crs),
+                         fields(result.passes, PASS_FIELDS), PASS_FIELDS,
+                         "rutwise vehicle passes (rear-axle path). " + CAUTION)
+    ruts = OutputLayer("ruts", _to_geoms([r.geometry for r in result.ruts], result.frame, crs),
+                       fields(result.ruts, RUT_FIELDS), RUT_FIELDS,
+                       "rutwise cleaned ruts. " + CAUTION)
+    return [passes, ruts]
+
+
+def write_result(result: AnalysisResult, path: str | os.PathLike[str],
+                 out_crs: str | None = None) -> list[Path]:
+    """Write the result to a GeoPackage, or to GeoJSON when ``path`` ends in .geojson/.json.
+
+    GeoJSON output is lon/lat WGS84 (RFC 7946): the passes go to ``path`` and the ruts to a
+    sibling file ``<stem>.ruts.geojson``; both carry the run metadata.
+    """
+    target = Path(path)
+    geojson = target.suffix.lower() in (".geojson", ".json")
+    if not geojson and target.suffix.lower() != ".gpkg":
+        raise BadInput(f"Unknown output type {target.suffix!r}.",
+                       "Name the output .gpkg (GeoPackage) or .geojson.")
+    crs = _target_crs(result, out_crs, geojson)
+    layers = result_layers(result, crs)
+    meta = dict(result.metadata, output_crs=crs.to_string())
+    if geojson:
+        ruts_path = target.with_name(target.stem + ".ruts" + target.suffix)
+        return [write_geojson(target, layers[0], meta), write_geojson(ruts_path, layers[1], meta)]
+    return [write_geopackage(target, layers, crs.to_wkt(), meta)]
