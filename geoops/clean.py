@@ -12,9 +12,18 @@ from __future__ import annotations
 from dataclasses import dataclass, field
 
 import numpy as np
+from scipy.signal import savgol_filter
 
-from .curves import Array, NearestOnPolyline, arc_length, drop_repeats, resample, smooth
-from .curves import turning_angles, unit_tangents
+from .curves import (
+    Array,
+    NearestOnPolyline,
+    arc_length,
+    drop_repeats,
+    resample,
+    smooth,
+    turning_angles,
+    unit_tangents,
+)
 from .errors import BadInput
 
 NDArrayBool = np.ndarray
@@ -22,6 +31,9 @@ NDArrayBool = np.ndarray
 #: smallest and largest smoothing windows, metres  # common practice: a few tyre footprints
 MIN_WINDOW_M = 1.0
 MAX_WINDOW_M = 6.0
+#: position smoothing window as a share of the tangent window: positions need less smoothing
+#: than directions, and heavy smoothing pulls curve extremes inwards
+POSITION_WINDOW_SHARE = 0.5
 
 
 @dataclass(frozen=True)
@@ -55,6 +67,7 @@ class CleanRut:
     raw_length: float
     raw_xy: Array = field(repr=False)
     tangents: Array = field(repr=False)
+    tangent_var: float
     index: NearestOnPolyline = field(repr=False, compare=False)
 
     @property
@@ -154,6 +167,33 @@ def estimate_noise(raw: Array, smoothed: Array) -> float:
     return float(np.median(d) / 0.6745)
 
 
+def _tangent_variance(
+    raw: Array, s_raw: Array, pts: Array, s: Array, sigma: float, window_pts: int
+) -> float:
+    """Variance (rad^2) of the tangent direction caused by vertex noise of ``sigma``.
+
+    Propagates seeded white noise on the raw vertices through the same resampling and
+    derivative filter (everything is linear in the noise), so irregular spacing and the
+    filter's actual window are accounted for.
+    """
+    if sigma <= 0 or len(pts) < 7:
+        return 0.0
+    rng = np.random.default_rng(20_26_12)  # fixed: the same rut gives the same answer
+    noise = rng.normal(0.0, sigma, size=raw.shape)
+    noise_pts = np.column_stack(
+        [np.interp(s, s_raw, noise[:, 0]), np.interp(s, s_raw, noise[:, 1])]
+    )
+    w = min(window_pts | 1, len(pts) - (1 - len(pts) % 2))
+    if w < 5:
+        return 0.0
+    d_true = savgol_filter(pts, w, 3, deriv=1, axis=0, mode="interp")
+    d_noise = savgol_filter(noise_pts, w, 3, deriv=1, axis=0, mode="interp")
+    norm2 = np.einsum("ij,ij->i", d_true, d_true)
+    ok = norm2 > 0
+    theta = (d_true[ok, 0] * d_noise[ok, 1] - d_true[ok, 1] * d_noise[ok, 0]) / norm2[ok]
+    return float(np.mean(theta**2)) if len(theta) else 0.0
+
+
 def clean_rut(parts: list[Array], accuracy: float | None = None) -> CleanRut:
     """Clean one rut given as one or more parts in the local metric frame.
 
@@ -198,8 +238,10 @@ def clean_rut(parts: list[Array], accuracy: float | None = None) -> CleanRut:
     step = float(np.clip(window / 12.0, 0.02, 0.5))
     pts, s = resample(xy, step)
     win_pts = max(int(round(window / step)), 5)
-    sm = smooth(pts, win_pts)
-    tangents = unit_tangents(sm, win_pts)
+    pos_pts = max(int(round(POSITION_WINDOW_SHARE * window / step)), 5)
+    sm = smooth(pts, pos_pts)
+    tangents = unit_tangents(pts, win_pts)
+    tangent_var = _tangent_variance(xy, s_raw, pts, s, sigma, win_pts)
     # samples inside a bridged gap carry no observation
     gap_start = s_raw[:-1][gap_seg]
     gap_end = s_raw[1:][gap_seg]
@@ -216,5 +258,6 @@ def clean_rut(parts: list[Array], accuracy: float | None = None) -> CleanRut:
         raw_length=raw_length,
         raw_xy=xy,
         tangents=tangents,
+        tangent_var=tangent_var,
         index=NearestOnPolyline(sm),
     )

@@ -42,25 +42,35 @@ def print_summary(result: object, outputs: Sequence[Path], source: str) -> None:
     assert isinstance(result, AnalysisResult)
     meta = result.metadata
     print(f"rutwise {__version__}: {source} (layer {meta['input_layer']}, {meta['input_crs']})")
-    print(f"{meta['ruts_read']} ruts read, {len(result.passes)} passes; "
-          f"noise {meta['noise_sigma_m']}")
+    print(
+        f"{meta['ruts_read']} ruts read, {len(result.passes)} passes; noise {meta['noise_sigma_m']}"
+    )
     if result.passes:
-        print(f"  {'pass':>4}  {'verdict':<12} {'conf':>5}  {'travel':<6} "
-              f"{'wheelbase m (95 %)':<22} {'class':<16} {'ruts':<10} source ids")
+        print(
+            f"  {'pass':>4}  {'verdict':<12} {'conf':>5}  {'travel':<6} "
+            f"{'wheelbase m (95 %)':<22} {'class':<16} {'ruts':<10} source ids"
+        )
         for p in result.passes:
             travel = _heading(p.geometry) if p.verdict == "decided" else "?"
-            wb = ("-" if p.wheelbase_m is None else
-                  f"{p.wheelbase_m:.2f} ({_fmt(p.wheelbase_low_m)}-{_fmt(p.wheelbase_high_m)})")
+            wb = (
+                "-"
+                if p.wheelbase_m is None
+                else f"{p.wheelbase_m:.2f} ({_fmt(p.wheelbase_low_m)}-{_fmt(p.wheelbase_high_m)})"
+            )
             conf = f"{p.confidence:.2f}" if p.verdict == "decided" else "-"
-            print(f"  {p.pass_id:>4}  {p.verdict:<12} {conf:>5}  {travel:<6} {wb:<22} "
-                  f"{p.vehicle_class:<16} {p.rut_ids:<10} {p.source_fids}")
+            print(
+                f"  {p.pass_id:>4}  {p.verdict:<12} {conf:>5}  {travel:<6} {wb:<22} "
+                f"{p.vehicle_class:<16} {p.rut_ids:<10} {p.source_fids}"
+            )
     unpaired = [r for r in result.ruts if r.pass_id is None]
     if unpaired:
         reasons: dict[str, list[str]] = {}
         for r in unpaired:
-            reasons.setdefault(r.reason, []).append(r.source_fids)
-        parts = [f"{k}: {', '.join(v[:8])}{' ...' if len(v) > 8 else ''}"
-                 for k, v in sorted(reasons.items())]
+            reasons.setdefault(r.reason or "unpaired", []).append(r.source_fids)
+        parts = [
+            f"{k}: {', '.join(v[:8])}{' ...' if len(v) > 8 else ''}"
+            for k, v in sorted(reasons.items())
+        ]
         print(f"  unpaired ruts ({len(unpaired)}): " + "; ".join(parts))
     for w in result.warnings:
         print(f"  warning: {w}")
@@ -72,13 +82,20 @@ def print_summary(result: object, outputs: Sequence[Path], source: str) -> None:
 def _cmd_analyze(args: argparse.Namespace) -> int:
     from .pipeline import AnalyzeOptions, analyze_file, write_result
 
-    options = AnalyzeOptions(layer=args.layer, crs=args.crs, out_crs=args.out_crs,
-                             accuracy=args.accuracy, id_field=args.id_field,
-                             accuracy_field=args.accuracy_field)
+    options = AnalyzeOptions(
+        layer=args.layer,
+        crs=args.crs,
+        out_crs=args.out_crs,
+        accuracy=args.accuracy,
+        id_field=args.id_field,
+        accuracy_field=args.accuracy_field,
+    )
     output = Path(args.output) if args.output else Path(Path(args.input).stem + "_rutwise.gpkg")
     if output.suffix.lower() not in (".gpkg", ".geojson", ".json"):
-        raise RutwiseError(f"Unknown output type {output.suffix!r}.",
-                           "Name the output .gpkg (GeoPackage) or .geojson.")
+        raise RutwiseError(
+            f"Unknown output type {output.suffix!r}.",
+            "Name the output .gpkg (GeoPackage) or .geojson.",
+        )
     result = analyze_file(args.input, options)
     outputs = write_result(result, output, out_crs=args.out_crs)
     if not args.quiet:
@@ -90,8 +107,10 @@ def _cmd_serve(args: argparse.Namespace) -> int:
     try:
         from service.app import run_server
     except ImportError as exc:  # pragma: no cover - depends on the installed extras
-        raise RutwiseError(f"The HTTP service is not installed ({exc}).",
-                           "Install with: pip install 'rutwise[service]'.") from None
+        raise RutwiseError(
+            f"The HTTP service is not installed ({exc}).",
+            "Install with: pip install 'rutwise[service]'.",
+        ) from None
     run_server(host=args.host, port=args.port)
     return 0
 
@@ -100,30 +119,47 @@ def build_parser() -> argparse.ArgumentParser:
     parser = argparse.ArgumentParser(
         prog="rutwise",
         description="Read vehicle passes from mapped wheel ruts: which ruts go together, which "
-                    "way the vehicle went, its wheelbase, and how sure that is.",
+        "way the vehicle went, its wheelbase, and how sure that is.",
     )
     parser.add_argument("--version", action="version", version=f"rutwise {__version__}")
     parser.add_argument("--debug", action="store_true", help="show tracebacks of internal errors")
     sub = parser.add_subparsers(dest="command", required=True)
 
-    a = sub.add_parser("analyze", help="analyse one layer of rut lines",
-                       description="Analyse one layer of rut lines and write the passes and "
-                                   "ruts layers.")
+    a = sub.add_parser(
+        "analyze",
+        help="analyse one layer of rut lines",
+        description="Analyse one layer of rut lines and write the passes and ruts layers.",
+    )
     a.add_argument("input", help="GeoJSON, GeoPackage, GPX, FlatGeobuf, zipped Shapefile, ...")
-    a.add_argument("-o", "--output", help="output .gpkg (default) or .geojson "
-                                          "(default: <input name>_rutwise.gpkg here)")
+    a.add_argument(
+        "-o",
+        "--output",
+        help="output .gpkg (default) or .geojson (default: <input name>_rutwise.gpkg here)",
+    )
     a.add_argument("--layer", help="layer to read when the file has several line layers")
-    a.add_argument("--crs", help="CRS of the input when the file has none (e.g. EPSG:27700); "
-                                 "overrides the file's")
-    a.add_argument("--out-crs", help="CRS of the output (default: the input's; GeoJSON output "
-                                     "is always lon/lat WGS 84)")
-    a.add_argument("--accuracy", type=float, metavar="METRES",
-                   help="horizontal accuracy of the vertices, one sigma per axis, metres "
-                        "(default: estimated from the data)")
-    a.add_argument("--accuracy-field", metavar="NAME",
-                   help="attribute holding each feature's horizontal accuracy in metres")
-    a.add_argument("--id-field", metavar="NAME",
-                   help="attribute whose values identify features in source_fids")
+    a.add_argument(
+        "--crs",
+        help="CRS of the input when the file has none (e.g. EPSG:27700); overrides the file's",
+    )
+    a.add_argument(
+        "--out-crs",
+        help="CRS of the output (default: the input's; GeoJSON output is always lon/lat WGS 84)",
+    )
+    a.add_argument(
+        "--accuracy",
+        type=float,
+        metavar="METRES",
+        help="horizontal accuracy of the vertices, one sigma per axis, metres "
+        "(default: estimated from the data)",
+    )
+    a.add_argument(
+        "--accuracy-field",
+        metavar="NAME",
+        help="attribute holding each feature's horizontal accuracy in metres",
+    )
+    a.add_argument(
+        "--id-field", metavar="NAME", help="attribute whose values identify features in source_fids"
+    )
     a.add_argument("-q", "--quiet", action="store_true", help="print nothing on success")
     a.set_defaults(func=_cmd_analyze)
 
@@ -150,8 +186,11 @@ def main(argv: Sequence[str] | None = None) -> int:
     except Exception as exc:  # a bug: say so in one line unless debugging
         if args.debug:
             raise
-        print(f"rutwise: internal error: {type(exc).__name__}: {exc} "
-              "(rerun with --debug for details and report it)", file=sys.stderr)
+        print(
+            f"rutwise: internal error: {type(exc).__name__}: {exc} "
+            "(rerun with --debug for details and report it)",
+            file=sys.stderr,
+        )
         return EXIT_BUG
 
 

@@ -12,7 +12,7 @@ reads files, builds frames or groups ruts into passes.
 
 from __future__ import annotations
 
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 
 import numpy as np
 from scipy.optimize import minimize_scalar
@@ -50,6 +50,12 @@ class HypothesisFit:
     wheelbase: float
     mse: float
     n_used: int
+    tangent_var: float = 0.0
+
+    @property
+    def raw_mse(self) -> float:
+        """Mean squared miss as measured, before removing the expected tangent-noise part."""
+        return self.mse + self.wheelbase**2 * self.tangent_var
 
 
 @dataclass(frozen=True)
@@ -110,6 +116,9 @@ class _Objective:
     def __init__(self, rear: CleanRut, target: CleanRut, along: int, idx: np.ndarray, cap: float):
         self.base = rear.xy[idx]
         self.u = along * rear.tangents[idx]
+        # tangent noise adds L^2 var(theta) to the expected squared miss; remove it so that
+        # noise does not pull the wheelbase towards zero (errors in variables)
+        self.tvar = rear.tangent_var
         self.target = target
         self.cap2 = cap * cap
         self.need = max(8, int(0.5 * len(idx)))
@@ -125,7 +134,8 @@ class _Objective:
         valid = valid.reshape(len(lengths), m)
         r = r.reshape(len(lengths), m)
         count = valid.sum(axis=1)
-        mse = np.where(count >= self.need, (r * valid).sum(axis=1) / np.maximum(count, 1), np.inf)
+        mse = (r * valid).sum(axis=1) / np.maximum(count, 1) - lengths**2 * self.tvar
+        mse = np.where(count >= self.need, np.maximum(mse, 0.0), np.inf)
         return mse, count
 
     def one(self, length: float) -> float:
@@ -146,8 +156,9 @@ def _fit(obj_coarse: _Objective, obj_fine: _Objective) -> tuple[float, float, in
     i = int(np.nanargmin(mse))
     lo = _GRID[max(i - 1, 0)]
     hi = _GRID[min(i + 1, len(_GRID) - 1)]
-    res = minimize_scalar(obj_fine.one, bounds=(lo, hi), method="bounded",
-                          options={"xatol": 1e-3 * _GRID[i]})
+    res = minimize_scalar(
+        obj_fine.one, bounds=(lo, hi), method="bounded", options={"xatol": 1e-3 * _GRID[i]}
+    )
     length = float(res.x)
     best, count = obj_fine.many(np.array([length]))
     grid_fine, _ = obj_fine.many(np.array([_GRID[i]]))
@@ -158,10 +169,14 @@ def _fit(obj_coarse: _Objective, obj_fine: _Objective) -> tuple[float, float, in
 
 def _interval(obj: _Objective, length: float, mse0: float, scale: float) -> tuple[float, float]:
     """95 % profile interval of the wheelbase: where n_eff*(mse-mse0)/sigma^2 <= chi2(0.95, 1)."""
-    grid = np.unique(np.concatenate([
-        np.geomspace(WHEELBASE_MIN_M, WHEELBASE_MAX_M, 60),
-        length * np.linspace(0.7, 1.3, 61),
-    ]))
+    grid = np.unique(
+        np.concatenate(
+            [
+                np.geomspace(WHEELBASE_MIN_M, WHEELBASE_MAX_M, 60),
+                length * np.linspace(0.7, 1.3, 61),
+            ]
+        )
+    )
     grid = grid[(grid >= WHEELBASE_MIN_M) & (grid <= WHEELBASE_MAX_M)]
     mse, _ = obj.many(grid)
     chi = scale * (mse - mse0)
@@ -212,8 +227,23 @@ def solve_pair(first: CleanRut, second: CleanRut) -> PairResult:
     tol_base = max(3.0 * sigma_pair, 0.05)
     cap = 4.0 * tol_base
     overlaps = (overlap0, overlap1)
-    empty = PairResult("not_a_pair", "no_overlap", None, None, align >= 0, 0.5, 0.5, 0.5, None, None, None,
-                       float("inf"), tol_base, 0.0, ())
+    empty = PairResult(
+        verdict="not_a_pair",
+        reason="no_overlap",
+        rear=None,
+        follows_first=None,
+        same_order=align >= 0,
+        confidence=0.5,
+        p_follows_first=0.5,
+        p_rear_first=0.5,
+        wheelbase=None,
+        wheelbase_low=None,
+        wheelbase_high=None,
+        residual=float("inf"),
+        tolerance=tol_base,
+        n_eff=0.0,
+        fits=(),
+    )
     if overlap0.sum() < 8 or overlap1.sum() < 8 or align == 0.0:
         return empty
     same_order = align > 0
@@ -230,13 +260,15 @@ def solve_pair(first: CleanRut, second: CleanRut) -> PairResult:
             length, mse, n_used = _fit(coarse, fine)
             follows_rear_order = along > 0
             follows_first = follows_rear_order if rear_i == 0 else follows_rear_order == same_order
-            fits.append(HypothesisFit(rear_i, along, follows_first, length, mse, n_used))
+            fits.append(
+                HypothesisFit(rear_i, along, follows_first, length, mse, n_used, rear.tangent_var)
+            )
             objs[(rear_i, along)] = fine
     finite = [f for f in fits if np.isfinite(f.mse)]
     if not finite:
         return empty
     best = min(finite, key=lambda f: f.mse)
-    residual = float(np.sqrt(best.mse))
+    residual = float(np.sqrt(best.raw_mse))
     tolerance = tol_base + 0.01 * best.wheelbase
     rear_track = tracks[best.rear]
     target_track = tracks[1 - best.rear]
@@ -244,7 +276,7 @@ def solve_pair(first: CleanRut, second: CleanRut) -> PairResult:
     stride = overlaps[best.rear].sum() / max(len(objs[(best.rear, best.along)].base), 1)
     used_length = best.n_used * rear_track.step * max(stride, 1.0)
     n_eff = max(used_length / max(rear_track.window_m, target_track.window_m), 1.0)
-    scale = n_eff / max(best.mse, RESIDUAL_FLOOR_M**2)
+    scale = n_eff / max(best.raw_mse, RESIDUAL_FLOOR_M**2)
 
     def class_best(pred: object) -> float:
         vals = [f.mse for f in finite if pred(f)]  # type: ignore[operator]
@@ -257,23 +289,43 @@ def solve_pair(first: CleanRut, second: CleanRut) -> PairResult:
     mse_r1 = class_best(lambda f: f.rear == 1)
     p_rear_first = _sigmoid(0.5 * scale * (mse_r1 - mse_r0))
 
+    base = PairResult(
+        verdict="not_a_pair",
+        reason="misfit",
+        rear=None,
+        follows_first=None,
+        same_order=same_order,
+        confidence=0.5,
+        p_follows_first=p_first,
+        p_rear_first=p_rear_first,
+        wheelbase=None,
+        wheelbase_low=None,
+        wheelbase_high=None,
+        residual=residual,
+        tolerance=tolerance,
+        n_eff=n_eff,
+        fits=tuple(fits),
+    )
     if residual > tolerance:
-        return PairResult("not_a_pair", "misfit", None, None, same_order, 0.5, p_first, p_rear_first,
-                          None, None, None, residual, tolerance, n_eff, tuple(fits))
+        return base
     low, high = _interval(objs[(best.rear, best.along)], best.wheelbase, best.mse, scale)
     at_bound = best.wheelbase < WHEELBASE_MIN_M * 1.05 or best.wheelbase > WHEELBASE_MAX_M / 1.05
     open_interval = low <= WHEELBASE_MIN_M * 1.0001 or high >= WHEELBASE_MAX_M * 0.9999
     identifiable = not at_bound and not open_interval and (high - low) <= 0.5 * best.wheelbase
     p_dir = max(p_first, 1.0 - p_first)
     rear_known = max(p_rear_first, 1 - p_rear_first) >= DECIDE_AT
-    wb = (best.wheelbase, low, high) if identifiable else (None, None, None)
-    if identifiable and p_dir >= DECIDE_AT:
-        return PairResult("decided", "", best.rear, p_first >= 0.5, same_order, p_dir, p_first, p_rear_first,
-                          *wb, residual, tolerance, n_eff, tuple(fits))
     if identifiable:
-        return PairResult("ambiguous", "both_directions_fit", best.rear if rear_known else None,
-                          None, same_order, 0.5, p_first, p_rear_first, *wb, residual, tolerance, n_eff,
-                          tuple(fits))
-    return PairResult("undetermined", "too_little_curvature", best.rear if rear_known else None,
-                      None, same_order, 0.5, p_first, p_rear_first, *wb, residual, tolerance, n_eff,
-                      tuple(fits))
+        base = replace(base, wheelbase=best.wheelbase, wheelbase_low=low, wheelbase_high=high)
+    if identifiable and p_dir >= DECIDE_AT:
+        return replace(
+            base,
+            verdict="decided",
+            reason="",
+            rear=best.rear,
+            follows_first=p_first >= 0.5,
+            confidence=p_dir,
+        )
+    rear_index = best.rear if rear_known else None
+    if identifiable:
+        return replace(base, verdict="ambiguous", reason="both_directions_fit", rear=rear_index)
+    return replace(base, verdict="undetermined", reason="too_little_curvature", rear=rear_index)

@@ -12,7 +12,7 @@ from __future__ import annotations
 import json
 import os
 import tempfile
-from collections.abc import Sequence
+from collections.abc import Mapping, Sequence
 from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any
@@ -27,8 +27,16 @@ from pyogrio.raw import write as raw_write
 from .curves import Array
 from .errors import BadInput
 
-LINE_TYPES = {"LineString", "MultiLineString", "LineString Z", "MultiLineString Z",
-              "LineString M", "MultiLineString M", "LineString ZM", "MultiLineString ZM"}
+LINE_TYPES = {
+    "LineString",
+    "MultiLineString",
+    "LineString Z",
+    "MultiLineString Z",
+    "LineString M",
+    "MultiLineString M",
+    "LineString ZM",
+    "MultiLineString ZM",
+}
 
 
 @dataclass
@@ -152,8 +160,10 @@ def read_layer(
     if not Path(path).exists() and not path.startswith("/vsi"):
         raise BadInput(f"No file at {path!r}.", "Check the path and try again.")
     if Path(path).is_dir():
-        raise BadInput(f"{path!r} is a folder, not a layer file.",
-                       "Give one file (use `rutwise batch` for folders).")
+        raise BadInput(
+            f"{path!r} is a folder, not a layer file.",
+            "Give one file (use `rutwise batch` for folders).",
+        )
     name = choose_layer(path, layer)
     try:
         info = pyogrio.read_info(path, layer=name)
@@ -165,10 +175,17 @@ def read_layer(
                 "Split the layer or raise the limit.",
             )
         meta, fids, wkb, field_data = raw_read(path, layer=name, return_fids=True)
-    except (pyogrio.errors.DataSourceError, pyogrio.errors.DataLayerError,
-            pyogrio.errors.FieldError, pyogrio.errors.GeometryError, OSError) as exc:
-        raise BadInput(f"Cannot read layer {name!r} of {path!r} ({_short(exc)}).",
-                       "Check that the file is complete and valid.") from None
+    except (
+        pyogrio.errors.DataSourceError,
+        pyogrio.errors.DataLayerError,
+        pyogrio.errors.FieldError,
+        pyogrio.errors.GeometryError,
+        OSError,
+    ) as exc:
+        raise BadInput(
+            f"Cannot read layer {name!r} of {path!r} ({_short(exc)}).",
+            "Check that the file is complete and valid.",
+        ) from None
     driver = str(meta.get("driver") or info.get("driver") or "")
     fields = {str(k): v for k, v in zip(meta["fields"], field_data, strict=True)}
     n = len(wkb) if wkb is not None else 0
@@ -189,14 +206,22 @@ def read_layer(
         warnings.append("Feature ids are not unique; source_fids may name several features.")
     keep = [i for i, p in enumerate(parts) if p]
     return InputLayer(
-        path=path, layer=name, driver=driver, crs=meta.get("crs"),
-        ids=[ids[i] for i in keep], parts=[parts[i] for i in keep], z=[zs[i] for i in keep],
-        fields={k: v[keep] for k, v in fields.items()}, skipped=skipped, warnings=warnings,
+        path=path,
+        layer=name,
+        driver=driver,
+        crs=meta.get("crs"),
+        ids=[ids[i] for i in keep],
+        parts=[parts[i] for i in keep],
+        z=[zs[i] for i in keep],
+        fields={k: v[keep] for k, v in fields.items()},
+        skipped=skipped,
+        warnings=warnings,
     )
 
 
-def _feature_ids(driver: str, fids: Any, fields: dict[str, np.ndarray], id_field: str | None,
-                 n: int) -> list[str]:
+def _feature_ids(
+    driver: str, fids: Any, fields: dict[str, np.ndarray], id_field: str | None, n: int
+) -> list[str]:
     if id_field is not None:
         if id_field not in fields:
             raise BadInput(
@@ -212,15 +237,18 @@ def _feature_ids(driver: str, fids: Any, fields: dict[str, np.ndarray], id_field
     return [str(i) for i in range(n)]
 
 
-def _line_parts(geoms: np.ndarray, ids: list[str]
-                ) -> tuple[list[list[Array]], list[list[Array] | None], list[tuple[str, str]]]:
+def _line_parts(
+    geoms: np.ndarray, ids: list[str]
+) -> tuple[list[list[Array]], list[list[Array] | None], list[tuple[str, str]]]:
     """Split geometries into line parts (vectorised), noting features that hold no line."""
     n = len(geoms)
     parts: list[list[Array]] = [[] for _ in range(n)]
     zs: list[list[Array] | None] = [None] * n
     skipped: list[tuple[str, str]] = []
     missing = shapely.is_missing(geoms) | shapely.is_empty(geoms)
-    flat, owner = shapely.get_parts(np.where(missing, None, geoms), return_index=True)
+    present = geoms.copy()
+    present[missing] = None
+    flat, owner = shapely.get_parts(present, return_index=True)
     # GeometryCollections may nest one level more
     nested = shapely.get_type_id(flat) == 7
     if nested.any():
@@ -264,7 +292,7 @@ class OutputLayer:
 
     name: str
     geometries: np.ndarray
-    fields: dict[str, Sequence[Any]]
+    fields: Mapping[str, Sequence[Any]]
     types: dict[str, str]  # field -> "int", "real", "text"
     description: str = ""
 
@@ -273,18 +301,22 @@ def _field_arrays(layer: OutputLayer) -> tuple[list[np.ndarray], list[np.ndarray
     data, masks = [], []
     for name, values in layer.fields.items():
         kind = layer.types[name]
-        mask = np.array([v is None or (isinstance(v, float) and np.isnan(v)) for v in values],
-                        dtype=bool)
+        mask = np.array(
+            [v is None or (isinstance(v, float) and np.isnan(v)) for v in values], dtype=bool
+        )
         if kind == "int":
-            arr: np.ndarray = np.array([0 if m else int(v) for v, m in zip(values, mask,
-                                                                           strict=True)],
-                                       dtype=np.int64)
+            arr: np.ndarray = np.array(
+                [0 if m else int(v) for v, m in zip(values, mask, strict=True)], dtype=np.int64
+            )
         elif kind == "real":
-            arr = np.array([np.nan if m else float(v) for v, m in zip(values, mask, strict=True)],
-                           dtype=np.float64)
+            arr = np.array(
+                [np.nan if m else float(v) for v, m in zip(values, mask, strict=True)],
+                dtype=np.float64,
+            )
         else:
-            arr = np.array([None if m else str(v) for v, m in zip(values, mask, strict=True)],
-                           dtype=object)
+            arr = np.array(
+                [None if m else str(v) for v, m in zip(values, mask, strict=True)], dtype=object
+            )
         data.append(arr)
         masks.append(mask)
     return data, masks
@@ -298,8 +330,9 @@ def _atomic_target(path: Path) -> Path:
     return Path(tmp)
 
 
-def write_geopackage(path: str | os.PathLike[str], layers: list[OutputLayer], crs: str,
-                     metadata: dict[str, str]) -> Path:
+def write_geopackage(
+    path: str | os.PathLike[str], layers: list[OutputLayer], crs: str, metadata: dict[str, str]
+) -> Path:
     """Write line layers and a ``run_metadata`` table to a GeoPackage, atomically."""
     target = Path(path)
     tmp = _atomic_target(target)
@@ -307,15 +340,29 @@ def write_geopackage(path: str | os.PathLike[str], layers: list[OutputLayer], cr
         for layer in layers:
             data, masks = _field_arrays(layer)
             raw_write(
-                str(tmp), shapely.to_wkb(layer.geometries), data, list(layer.fields),
-                field_mask=masks, layer=layer.name, driver="GPKG", crs=crs,
-                geometry_type="LineString", layer_options={"DESCRIPTION": layer.description},
+                str(tmp),
+                shapely.to_wkb(layer.geometries),
+                data,
+                list(layer.fields),
+                field_mask=masks,
+                layer=layer.name,
+                driver="GPKG",
+                crs=crs,
+                geometry_type="LineString",
+                layer_options={"DESCRIPTION": layer.description},
                 nan_as_null=True,
             )
         keys = np.array(list(metadata), dtype=object)
         vals = np.array([metadata[k] for k in metadata], dtype=object)
-        raw_write(str(tmp), None, [keys, vals], ["key", "value"], layer="run_metadata",
-                  driver="GPKG", layer_options={"DESCRIPTION": "rutwise run metadata"})
+        raw_write(
+            str(tmp),
+            None,
+            [keys, vals],
+            ["key", "value"],
+            layer="run_metadata",
+            driver="GPKG",
+            layer_options={"DESCRIPTION": "rutwise run metadata"},
+        )
         os.replace(tmp, target)
     finally:
         if tmp.exists():
@@ -323,8 +370,9 @@ def write_geopackage(path: str | os.PathLike[str], layers: list[OutputLayer], cr
     return target
 
 
-def geojson_document(layer: OutputLayer, metadata: dict[str, str], decimals: int = 8
-                     ) -> dict[str, Any]:
+def geojson_document(
+    layer: OutputLayer, metadata: dict[str, str], decimals: int = 8
+) -> dict[str, Any]:
     """An RFC 7946 FeatureCollection (geometries must already be lon/lat WGS84), with the run
     metadata as a foreign member ``rutwise_metadata``."""
     data, masks = _field_arrays(layer)
@@ -339,26 +387,37 @@ def geojson_document(layer: OutputLayer, metadata: dict[str, str], decimals: int
         for name, arr, m in zip(names, data, masks, strict=True):
             v = arr[i]
             props[name] = None if m[i] else (v.item() if hasattr(v, "item") else v)
-        features.append({
-            "type": "Feature",
-            "id": i + 1,
-            "properties": props,
-            "geometry": {"type": "LineString", "coordinates": rounded[start:start + int(cnt)]},
-        })
+        features.append(
+            {
+                "type": "Feature",
+                "id": i + 1,
+                "properties": props,
+                "geometry": {
+                    "type": "LineString",
+                    "coordinates": rounded[start : start + int(cnt)],
+                },
+            }
+        )
         start += int(cnt)
-    return {"type": "FeatureCollection", "name": layer.name, "features": features,
-            "rutwise_metadata": metadata}
+    return {
+        "type": "FeatureCollection",
+        "name": layer.name,
+        "features": features,
+        "rutwise_metadata": metadata,
+    }
 
 
-def write_geojson(path: str | os.PathLike[str], layer: OutputLayer, metadata: dict[str, str]
-                  ) -> Path:
+def write_geojson(
+    path: str | os.PathLike[str], layer: OutputLayer, metadata: dict[str, str]
+) -> Path:
     """Write one layer as RFC 7946 GeoJSON (lon/lat WGS84 expected), atomically."""
     target = Path(path)
     tmp = _atomic_target(target)
     try:
         with open(tmp, "w", encoding="utf-8") as fh:
-            json.dump(geojson_document(layer, metadata), fh, ensure_ascii=False,
-                      separators=(",", ":"))
+            json.dump(
+                geojson_document(layer, metadata), fh, ensure_ascii=False, separators=(",", ":")
+            )
         os.replace(tmp, target)
     finally:
         if tmp.exists():

@@ -70,7 +70,10 @@ def choose_pairs(ruts: list[CleanRut]) -> Pairing:
         used.update((i, j))
         pairs.append((i, j, res))
     had_neighbour = {k for i, j in cands for k in (i, j)}
-    unpaired = {k: ("not_a_pair" if k in had_neighbour else "no_partner")
-                for k in range(len(ruts)) if k not in used}
+    unpaired = {
+        k: ("not_a_pair" if k in had_neighbour else "no_partner")
+        for k in range(len(ruts))
+        if k not in used
+    }
     pairs.sort(key=lambda c: min(c[0], c[1]))
     return Pairing(pairs, unpaired)

@@ -43,15 +43,32 @@ GEAR_ASSUMPTION = (
 
 #: contract field types, in order (design section 4)
 PASS_FIELDS = {
-    "pass_id": "int", "verdict": "text", "confidence": "real", "wheelbase_m": "real",
-    "wheelbase_low_m": "real", "wheelbase_high_m": "real", "track_width_m": "real",
-    "wheel_tracks": "int", "vehicle_class": "text", "gear": "text", "reversals": "int",
-    "min_turn_radius_m": "real", "max_steer_deg": "real", "residual_m": "real",
-    "length_m": "real", "rut_ids": "text", "source_fids": "text",
+    "pass_id": "int",
+    "verdict": "text",
+    "confidence": "real",
+    "wheelbase_m": "real",
+    "wheelbase_low_m": "real",
+    "wheelbase_high_m": "real",
+    "track_width_m": "real",
+    "wheel_tracks": "int",
+    "vehicle_class": "text",
+    "gear": "text",
+    "reversals": "int",
+    "min_turn_radius_m": "real",
+    "max_steer_deg": "real",
+    "residual_m": "real",
+    "length_m": "real",
+    "rut_ids": "text",
+    "source_fids": "text",
 }
 RUT_FIELDS = {
-    "rut_id": "int", "pass_id": "int", "wheel": "text", "verdict": "text", "reason": "text",
-    "source_fids": "text", "length_m": "real",
+    "rut_id": "int",
+    "pass_id": "int",
+    "wheel": "text",
+    "verdict": "text",
+    "reason": "text",
+    "source_fids": "text",
+    "length_m": "real",
 }
 
 
@@ -68,8 +85,10 @@ class AnalyzeOptions:
 
     def __post_init__(self) -> None:
         if self.accuracy is not None and not (0 < self.accuracy < 1000):
-            raise BadInput(f"accuracy must be a positive number of metres, got {self.accuracy}.",
-                           "Give the horizontal accuracy (one sigma) in metres, e.g. 0.02.")
+            raise BadInput(
+                f"accuracy must be a positive number of metres, got {self.accuracy}.",
+                "Give the horizontal accuracy (one sigma) in metres, e.g. 0.02.",
+            )
 
 
 @dataclass
@@ -128,8 +147,9 @@ def _rear_attributes(rut: CleanRut, wheelbase: float | None) -> tuple[float | No
     return radius, steer
 
 
-def _make_pass(pass_id: int, i: int, j: int, res: PairResult, ruts: list[CleanRut],
-               ids: list[str]) -> tuple[PassRecord, dict[int, tuple[str, bool]]]:
+def _make_pass(
+    pass_id: int, i: int, j: int, res: PairResult, ruts: list[CleanRut], ids: list[str]
+) -> tuple[PassRecord, dict[int, tuple[str, bool]]]:
     """A pass record from a judged pair (tracks i, j), and per rut: wheel label, reverse it?"""
     tracks = (i, j)
     rear_pos = res.rear if res.rear is not None else 0
@@ -166,8 +186,7 @@ def _make_pass(pass_id: int, i: int, j: int, res: PairResult, ruts: list[CleanRu
     return record, flips
 
 
-def analyze_layer(layer: InputLayer, options: AnalyzeOptions = AnalyzeOptions()
-                  ) -> AnalysisResult:
+def analyze_layer(layer: InputLayer, options: AnalyzeOptions = AnalyzeOptions()) -> AnalysisResult:
     """Run the whole analysis on a layer already read from a file."""
     crs = resolve_crs(layer.crs, options.crs)
     xy_all = layer.all_xy()
@@ -199,16 +218,29 @@ def analyze_layer(layer: InputLayer, options: AnalyzeOptions = AnalyzeOptions()
         if k in labels:
             pid, wheel, reverse, verdict = labels[k]
             geom = rut.raw_xy[::-1] if reverse else rut.raw_xy
-            ruts_out.append(RutRecord(src + 1, pid, wheel, verdict, None, layer.ids[src],
-                                      rut.raw_length, geom))
+            ruts_out.append(
+                RutRecord(src + 1, pid, wheel, verdict, None, layer.ids[src], rut.raw_length, geom)
+            )
         else:
-            ruts_out.append(RutRecord(src + 1, None, "unassigned", "unpaired",
-                                      pairing.unpaired.get(k, "no_partner"), layer.ids[src],
-                                      rut.raw_length, rut.raw_xy))
+            ruts_out.append(
+                RutRecord(
+                    src + 1,
+                    None,
+                    "unassigned",
+                    "unpaired",
+                    pairing.unpaired.get(k, "no_partner"),
+                    layer.ids[src],
+                    rut.raw_length,
+                    rut.raw_xy,
+                )
+            )
     for k, message in bad:
         xy = np.column_stack(frame.to_local(*np.concatenate(layer.parts[k]).T))
-        ruts_out.append(RutRecord(k + 1, None, "unassigned", "unpaired", "degenerate_line",
-                                  layer.ids[k], 0.0, xy))
+        ruts_out.append(
+            RutRecord(
+                k + 1, None, "unassigned", "unpaired", "degenerate_line", layer.ids[k], 0.0, xy
+            )
+        )
         warnings.append(f"Feature {layer.ids[k]}: {message}")
     ruts_out.sort(key=lambda r: r.rut_id)
     for fid, reason in layer.skipped:
@@ -222,9 +254,11 @@ def _accuracies(layer: InputLayer, options: AnalyzeOptions) -> list[float | None
     if options.accuracy_field is None:
         return [options.accuracy] * n
     if options.accuracy_field not in layer.fields:
-        raise BadInput(f"No attribute {options.accuracy_field!r} for the accuracy; the layer has: "
-                       f"{', '.join(layer.fields) or 'none'}.",
-                       "Name one of those with --accuracy-field.")
+        raise BadInput(
+            f"No attribute {options.accuracy_field!r} for the accuracy; the layer has: "
+            f"{', '.join(layer.fields) or 'none'}.",
+            "Name one of those with --accuracy-field.",
+        )
     out: list[float | None] = []
     for v in layer.fields[options.accuracy_field]:
         try:
@@ -235,8 +269,15 @@ def _accuracies(layer: InputLayer, options: AnalyzeOptions) -> list[float | None
     return out
 
 
-def _metadata(layer: InputLayer, options: AnalyzeOptions, frame: LocalFrame, crs: pyproj.CRS,
-              ruts: list[CleanRut], warnings: list[str], n_passes: int) -> dict[str, str]:
+def _metadata(
+    layer: InputLayer,
+    options: AnalyzeOptions,
+    frame: LocalFrame,
+    crs: pyproj.CRS,
+    ruts: list[CleanRut],
+    warnings: list[str],
+    n_passes: int,
+) -> dict[str, str]:
     sig = [r.sigma for r in ruts]
     est = [r.sigma for r in ruts if r.sigma_source == "estimated"]
     return {
@@ -258,8 +299,9 @@ def _metadata(layer: InputLayer, options: AnalyzeOptions, frame: LocalFrame, crs
     }
 
 
-def analyze_file(path: str | os.PathLike[str], options: AnalyzeOptions = AnalyzeOptions()
-                 ) -> AnalysisResult:
+def analyze_file(
+    path: str | os.PathLike[str], options: AnalyzeOptions = AnalyzeOptions()
+) -> AnalysisResult:
     """Read a layer from ``path`` and analyse it."""
     layer = read_layer(path, layer=options.layer, id_field=options.id_field)
     return analyze_layer(layer, options)
@@ -273,8 +315,10 @@ def _target_crs(result: AnalysisResult, out_crs: str | None, geojson: bool) -> p
     try:
         return pyproj.CRS.from_user_input(out_crs)
     except pyproj.exceptions.CRSError:
-        raise CrsError(f"Unknown output CRS {out_crs!r}.",
-                       "Give an EPSG code such as EPSG:27700, or a WKT/PROJ definition.") from None
+        raise CrsError(
+            f"Unknown output CRS {out_crs!r}.",
+            "Give an EPSG code such as EPSG:27700, or a WKT/PROJ definition.",
+        ) from None
 
 
 def _to_geoms(arrays: list[Array], frame: LocalFrame, crs: pyproj.CRS) -> np.ndarray:
@@ -287,21 +331,30 @@ def _to_geoms(arrays: list[Array], frame: LocalFrame, crs: pyproj.CRS) -> np.nda
 
 def result_layers(result: AnalysisResult, crs: pyproj.CRS) -> list[OutputLayer]:
     """The ``passes`` and ``ruts`` layers with geometries in ``crs``."""
+
     def fields(records: list[Any], spec: dict[str, str]) -> dict[str, list[Any]]:
         return {name: [getattr(r, name) for r in records] for name in spec}
 
-    passes = OutputLayer("passes", _to_geoms([p.geometry for p in result.passes], result.frame,
-                                             crs),
-                         fields(result.passes, PASS_FIELDS), PASS_FIELDS,
-                         "rutwise vehicle passes (rear-axle path). " + CAUTION)
-    ruts = OutputLayer("ruts", _to_geoms([r.geometry for r in result.ruts], result.frame, crs),
-                       fields(result.ruts, RUT_FIELDS), RUT_FIELDS,
-                       "rutwise cleaned ruts. " + CAUTION)
+    passes = OutputLayer(
+        "passes",
+        _to_geoms([p.geometry for p in result.passes], result.frame, crs),
+        fields(result.passes, PASS_FIELDS),
+        PASS_FIELDS,
+        "rutwise vehicle passes (rear-axle path). " + CAUTION,
+    )
+    ruts = OutputLayer(
+        "ruts",
+        _to_geoms([r.geometry for r in result.ruts], result.frame, crs),
+        fields(result.ruts, RUT_FIELDS),
+        RUT_FIELDS,
+        "rutwise cleaned ruts. " + CAUTION,
+    )
     return [passes, ruts]
 
 
-def write_result(result: AnalysisResult, path: str | os.PathLike[str],
-                 out_crs: str | None = None) -> list[Path]:
+def write_result(
+    result: AnalysisResult, path: str | os.PathLike[str], out_crs: str | None = None
+) -> list[Path]:
     """Write the result to a GeoPackage, or to GeoJSON when ``path`` ends in .geojson/.json.
 
     GeoJSON output is lon/lat WGS84 (RFC 7946): the passes go to ``path`` and the ruts to a
@@ -310,8 +363,10 @@ def write_result(result: AnalysisResult, path: str | os.PathLike[str],
     target = Path(path)
     geojson = target.suffix.lower() in (".geojson", ".json")
     if not geojson and target.suffix.lower() != ".gpkg":
-        raise BadInput(f"Unknown output type {target.suffix!r}.",
-                       "Name the output .gpkg (GeoPackage) or .geojson.")
+        raise BadInput(
+            f"Unknown output type {target.suffix!r}.",
+            "Name the output .gpkg (GeoPackage) or .geojson.",
+        )
     crs = _target_crs(result, out_crs, geojson)
     layers = result_layers(result, crs)
     meta = dict(result.metadata, output_crs=crs.to_string())

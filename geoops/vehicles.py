@@ -20,18 +20,33 @@ class VehicleClass:
 
 #: Typical dimensions (wheelbase, centre-to-centre track width), metres.
 VEHICLE_CLASSES: tuple[VehicleClass, ...] = (
-    VehicleClass("bicycle", (0.93, 1.30), None, "common practice: road 0.96-1.05, mountain 1.10-1.30"),
+    VehicleClass(
+        "bicycle", (0.93, 1.30), None, "common practice: road 0.96-1.05, mountain 1.10-1.30"
+    ),
     VehicleClass("motorcycle", (1.30, 1.65), None, "common practice"),
     VehicleClass("atv", (1.10, 1.40), (0.80, 1.05), "common practice: ATV / quad"),
     VehicleClass("car", (2.35, 3.05), (1.40, 1.70), "common practice: passenger car"),
-    VehicleClass("pickup", (3.05, 4.25), (1.50, 1.80), "common practice; AASHTO Green Book "
-                 "P design vehicle wheelbase 3.35 m (11 ft)"),
-    VehicleClass("tractor", (1.95, 3.25), (1.45, 2.35), "common practice: farm tractor, "
-                 "adjustable track"),
-    VehicleClass("forestry_machine", (3.15, 6.10), (2.00, 2.85), "common practice: skidder "
-                 "3.2-4.0 / 2.3-2.8, forwarder 4.5-6.0 / 2.0-2.3"),
-    VehicleClass("truck", (4.50, 8.00), (1.80, 2.10), "AASHTO Green Book SU-30 design vehicle "
-                 "wheelbase 6.1 m (20 ft); range common practice"),
+    VehicleClass(
+        "pickup",
+        (3.05, 4.25),
+        (1.50, 1.80),
+        "common practice; AASHTO Green Book P design vehicle wheelbase 3.35 m (11 ft)",
+    ),
+    VehicleClass(
+        "tractor", (1.95, 3.25), (1.45, 2.35), "common practice: farm tractor, adjustable track"
+    ),
+    VehicleClass(
+        "forestry_machine",
+        (3.15, 6.10),
+        (2.00, 2.85),
+        "common practice: skidder 3.2-4.0 / 2.3-2.8, forwarder 4.5-6.0 / 2.0-2.3",
+    ),
+    VehicleClass(
+        "truck",
+        (4.50, 8.00),
+        (1.80, 2.10),
+        "AASHTO Green Book SU-30 design vehicle wheelbase 6.1 m (20 ft); range common practice",
+    ),
 )
 
 
@@ -41,8 +56,9 @@ def _score(value: float, rng: tuple[float, float]) -> float:
     return abs(value - centre) / half
 
 
-def suggest_class(wheelbase: float | None, track_width: float | None, single_track: bool | None
-                  ) -> str:
+def suggest_class(
+    wheelbase: float | None, track_width: float | None, single_track: bool | None
+) -> str:
     """Suggest a vehicle class from the wheelbase and, when known, the track width.
 
     Parameters
