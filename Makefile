@@ -16,7 +16,13 @@ $(STAMP): pyproject.toml
 ## make run: analyse the bundled sample layers and print a summary
 run: $(STAMP)
 	@mkdir -p $(OUT)
-	$(BIN)/rutwise demo --out-dir $(OUT)
+	$(BIN)/rutwise analyze sample_layers/harrowmere_ranger_walk.geojson \
+		--accuracy-field accuracy_m -o $(OUT)/harrowmere_ranger_walk.gpkg
+	@echo
+	$(BIN)/rutwise analyze sample_layers/harrowmere_analyst.gpkg --layer ruts_digitised \
+		--id-field rut_ref -o $(OUT)/harrowmere_analyst.gpkg
+	@echo
+	@echo "Open $(OUT)/*.gpkg in a desktop GIS: layers passes, ruts and run_metadata."
 
 ## make test: lint, type-check and run the whole test suite
 test: $(STAMP)

@@ -1,0 +1,133 @@
+"""Build the invented demo scenario in sample_layers/ from the project's own simulator.
+
+Scenario (invented; see sample_layers/README.md): Harrowmere Heath, a moorland reserve in
+the Southern Uplands. Ranger Ilse Brannock walks fresh wheel ruts near the north gate with an
+RTK rover; analyst Tomas Everleigh digitises ruts from drone imagery of the burn crossing in the
+national grid. The coordinates are real moorland; the people, the reserve and every rut are
+invented. Run: ``python sample_layers/make_samples.py`` (or ``make samples``).
+"""
+
+from __future__ import annotations
+
+import json
+from pathlib import Path
+
+import numpy as np
+import pyproj
+import shapely
+from pyogrio.raw import write
+
+from geoops.kinematics import simulate_steering
+from geoops.scenarios import ATV, BICYCLE, CAR, mapped_lines, random_smooth, s_curve, slalom
+
+HERE = Path(__file__).resolve().parent
+SEED = 20261202
+#: north gate of the invented reserve (real moorland, lon/lat WGS 84)
+GATE_LON, GATE_LAT = -3.0450, 55.4175
+#: burn crossing, 1.2 km to the south-east
+BURN_LON, BURN_LAT = -3.0300, 55.4090
+
+
+def _local_to(lon0: float, lat0: float, crs: str) -> pyproj.Transformer:
+    local = pyproj.CRS.from_proj4(f"+proj=aeqd +lat_0={lat0} +lon_0={lon0} +datum=WGS84 +units=m")
+    return pyproj.Transformer.from_crs(local, crs, always_xy=True)
+
+
+def _rotate(xy: np.ndarray, deg: float, shift: tuple[float, float]) -> np.ndarray:
+    a = np.radians(deg)
+    rot = np.array([[np.cos(a), -np.sin(a)], [np.sin(a), np.cos(a)]])
+    return xy @ rot.T + np.asarray(shift)
+
+
+def ranger_walk(rng: np.random.Generator) -> dict:
+    """GeoJSON (RFC 7946 lon/lat): a bicycle pass and a car pass, walked with an RTK rover."""
+    to_ll = _local_to(GATE_LON, GATE_LAT, "EPSG:4326")
+    features = []
+    step = 0.02
+    bike = simulate_steering(BICYCLE, slalom(55.0, step, 14.0, 16.0), step)
+    car = simulate_steering(CAR, s_curve(70.0, step, 16.0, 14.0, ramp_m=5.0), step)
+    plans = [
+        (bike, ("rear", "front"), 35.0, (-20.0, 5.0), "bicycle ruts by the north gate"),
+        (car, ("rear_left", "front_left"), -60.0, (10.0, 40.0), "left-hand ruts of a car"),
+    ]
+    fid = 101
+    for sim, wheels, turn, shift, note in plans:
+        lines = mapped_lines(sim, 0.02, (0.3, 0.7), rng, which=list(wheels))
+        for wheel in wheels:
+            xy = _rotate(lines[wheel], turn, shift)
+            lon, lat = to_ll.transform(xy[:, 0], xy[:, 1])
+            features.append(
+                {
+                    "type": "Feature",
+                    "id": fid,
+                    "properties": {
+                        "surveyor": "I. Brannock",
+                        "accuracy_m": 0.02,
+                        "note": note,
+                        "walked": "2026-10-14",
+                    },
+                    "geometry": {
+                        "type": "LineString",
+                        "coordinates": np.column_stack([lon, lat]).round(8).tolist(),
+                    },
+                }
+            )
+            fid += 1
+    return {"type": "FeatureCollection", "name": "harrowmere_ranger_walk", "features": features}
+
+
+def analyst_layers(rng: np.random.Generator) -> dict[str, tuple[list, dict]]:
+    """GeoPackage layers in the British National Grid: digitised ruts and fence lines."""
+    to_bng = _local_to(BURN_LON, BURN_LAT, "EPSG:27700")
+    step = 0.02
+    quad = simulate_steering(ATV, random_smooth(80.0, step, rng, 22.0, 4.0), step)
+    lines = mapped_lines(quad, 0.03, (0.4, 1.0), rng, which=["rear_left", "front_left"])
+    ruts = [_rotate(lines[w], 110.0, (0.0, 0.0)) for w in ("rear_left", "front_left")]
+    # a sheep path crossing the scene: a lone single line, not a vehicle rut
+    t = np.linspace(0, 1, 60)
+    path = np.column_stack([-30 + 70 * t, -25 + 50 * t + 1.5 * np.sin(9 * t)])
+    path += rng.normal(0, 0.05, path.shape)
+    ruts.append(path)
+    ids = ["HH-0931", "HH-0932", "HH-0940"]
+    kinds = ["rut", "rut", "animal path"]
+    geoms, fence = [], []
+    for xy in ruts:
+        x, y = to_bng.transform(xy[:, 0], xy[:, 1])
+        geoms.append(shapely.LineString(np.column_stack([x, y]).round(3)))
+    fx, fy = to_bng.transform(np.array([-50.0, 60.0]), np.array([35.0, 38.0]))
+    fence.append(shapely.LineString(np.column_stack([fx, fy])))
+    return {
+        "ruts_digitised": (
+            geoms,
+            {
+                "rut_ref": np.array(ids, dtype=object),
+                "kind": np.array(kinds, dtype=object),
+                "digitiser": np.array(["T. Everleigh"] * 3, dtype=object),
+            },
+        ),
+        "fence_lines": (fence, {"name": np.array(["burn fence"], dtype=object)}),
+    }
+
+
+def main() -> None:
+    rng = np.random.default_rng(SEED)
+    walk = ranger_walk(rng)
+    (HERE / "harrowmere_ranger_walk.geojson").write_text(json.dumps(walk, indent=1) + "\n")
+    gpkg = HERE / "harrowmere_analyst.gpkg"
+    gpkg.unlink(missing_ok=True)
+    for name, (geoms, fields) in analyst_layers(rng).items():
+        write(
+            str(gpkg),
+            shapely.to_wkb(np.array(geoms, dtype=object)),
+            list(fields.values()),
+            list(fields),
+            layer=name,
+            driver="GPKG",
+            crs="EPSG:27700",
+            geometry_type="LineString",
+        )
+    print(f"wrote {HERE / 'harrowmere_ranger_walk.geojson'} and {gpkg}")
+
+
+if __name__ == "__main__":
+    main()
