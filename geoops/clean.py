@@ -12,7 +12,6 @@ from __future__ import annotations
 from dataclasses import dataclass, field
 
 import numpy as np
-from scipy.signal import savgol_filter
 
 from .curves import (
     Array,
@@ -20,6 +19,7 @@ from .curves import (
     arc_length,
     drop_repeats,
     resample,
+    savgol,
     smooth,
     turning_angles,
     unit_tangents,
@@ -186,8 +186,8 @@ def _tangent_variance(
     w = min(window_pts | 1, len(pts) - (1 - len(pts) % 2))
     if w < 5:
         return 0.0
-    d_true = savgol_filter(pts, w, 3, deriv=1, axis=0, mode="interp")
-    d_noise = savgol_filter(noise_pts, w, 3, deriv=1, axis=0, mode="interp")
+    d_true = savgol(pts, w, 3, deriv=1)
+    d_noise = savgol(noise_pts, w, 3, deriv=1)
     norm2 = np.einsum("ij,ij->i", d_true, d_true)
     ok = norm2 > 0
     theta = (d_true[ok, 0] * d_noise[ok, 1] - d_true[ok, 1] * d_noise[ok, 0]) / norm2[ok]

@@ -139,7 +139,8 @@ class _Objective:
         return mse, count
 
     def one(self, length: float) -> float:
-        return float(self.many(np.array([length]))[0][0])
+        # a large finite value where too few samples fit keeps the bounded search well-posed
+        return min(float(self.many(np.array([length]))[0][0]), 1e12)
 
 
 def _subsample(mask: np.ndarray, most: int) -> np.ndarray:
