@@ -26,7 +26,7 @@ run: $(STAMP)
 
 ## make test: lint, type-check and run the whole test suite
 test: $(STAMP)
-	$(BIN)/ruff check geoops service tests bench sample_layers
+	$(BIN)/ruff check .
 	$(BIN)/mypy
 	$(BIN)/python -m pytest -q -n 2
 

@@ -12,6 +12,7 @@ reads files, builds frames or groups ruts into passes.
 
 from __future__ import annotations
 
+from collections.abc import Callable
 from dataclasses import dataclass, replace
 
 import numpy as np
@@ -279,8 +280,8 @@ def solve_pair(first: CleanRut, second: CleanRut) -> PairResult:
     n_eff = max(used_length / max(rear_track.window_m, target_track.window_m), 1.0)
     scale = n_eff / max(best.raw_mse, RESIDUAL_FLOOR_M**2)
 
-    def class_best(pred: object) -> float:
-        vals = [f.mse for f in finite if pred(f)]  # type: ignore[operator]
+    def class_best(pred: Callable[[HypothesisFit], bool]) -> float:
+        vals = [f.mse for f in finite if pred(f)]
         return min(vals) if vals else cap * cap
 
     mse_fwd = class_best(lambda f: f.follows_first)
