@@ -8,6 +8,7 @@ and the traceback only with ``--debug``.
 from __future__ import annotations
 
 import argparse
+import os
 import sys
 import warnings
 from collections.abc import Sequence
@@ -96,8 +97,23 @@ def _cmd_analyze(args: argparse.Namespace) -> int:
             f"Unknown output type {output.suffix!r}.",
             "Name the output .gpkg (GeoPackage) or .geojson.",
         )
+    targets = [output]
+    if output.suffix.lower() != ".gpkg":
+        targets.append(output.with_name(output.stem + ".ruts" + output.suffix))
+    source = Path(args.input)
+    if source.is_file() and any(t.exists() and os.path.samefile(t, source) for t in targets):
+        raise RutwiseError(
+            f"The output {str(output)!r} would overwrite the input.",
+            "Name another output file with -o.",
+        )
     result = analyze_file(args.input, options)
-    outputs = write_result(result, output, out_crs=args.out_crs)
+    try:
+        outputs = write_result(result, output, out_crs=args.out_crs)
+    except OSError as exc:
+        raise RutwiseError(
+            f"Cannot write {str(output)!r} ({exc.strerror or type(exc).__name__}).",
+            "Name an output file in a folder you can write to with -o.",
+        ) from None
     if not args.quiet:
         print_summary(result, outputs, args.input)
     return 0

@@ -265,10 +265,16 @@ class NearestOnPolyline:
         dist, s, side
             ``side`` is +1 when the point lies left of the line (in vertex order), else -1.
         """
+        dist, s, side, _ = self.nearest(pts, k)
+        return dist, s, side
+
+    def nearest(self, pts: Array, k: int = 2) -> tuple[Array, Array, Array, Array]:
+        """Like :meth:`query`, plus the nearest points themselves, ``(m, 2)``."""
         n = len(self.xy)
         if n < 2:
             d = np.hypot(*(pts - self.xy[0]).T)
-            return d, np.zeros(len(pts)), np.ones(len(pts))
+            foot0 = np.broadcast_to(self.xy[0], pts.shape).copy()
+            return d, np.zeros(len(pts)), np.ones(len(pts)), foot0
         k = min(k, n)
         _, idx = self._tree.query(pts, k=k)
         idx = np.asarray(idx).reshape(len(pts), k)
@@ -292,4 +298,4 @@ class NearestOnPolyline:
         s = self._s[sj] + t[rows, j] * seg_len
         cross = ab[rows, j, 0] * ap[rows, j, 1] - ab[rows, j, 1] * ap[rows, j, 0]
         side = np.where(cross >= 0, 1.0, -1.0)
-        return dist, s, side
+        return dist, s, side, foot[rows, j]

@@ -30,6 +30,9 @@ DECIDE_AT = 0.95
 CHI2_95_1DOF = 3.841458820694124  # source: chi-square distribution table, 1 dof, p = 0.95
 #: residual floor (m): digitising and numeric precision  # common practice
 RESIDUAL_FLOOR_M = 0.005
+#: largest lateral shift between same-side front and rear tracks, metres: half the largest
+#: front/rear track difference of a tractor (1.5-2.3 m adjustable track)  # common practice
+SHIFT_MAX_M = 0.5
 #: largest log-odds reported; keeps confidences finite and below 1 - 1e-13
 MAX_LOG_ODDS = 30.0
 
@@ -52,6 +55,7 @@ class HypothesisFit:
     mse: float
     n_used: int
     tangent_var: float = 0.0
+    shift: float = 0.0
 
     @property
     def raw_mse(self) -> float:
@@ -115,8 +119,11 @@ class _Objective:
     """Mean truncated squared miss of the tangent-extended rear points against the target."""
 
     def __init__(self, rear: CleanRut, target: CleanRut, along: int, idx: np.ndarray, cap: float):
+        self.idx = idx
         self.base = rear.xy[idx]
         self.u = along * rear.tangents[idx]
+        self.n = np.column_stack([-self.u[:, 1], self.u[:, 0]])  # left of the travel direction
+        self.shift = 0.0
         # tangent noise adds L^2 var(theta) to the expected squared miss; remove it so that
         # noise does not pull the wheelbase towards zero (errors in variables)
         self.tvar = rear.tangent_var
@@ -125,9 +132,24 @@ class _Objective:
         self.need = max(8, int(0.5 * len(idx)))
         self.edge = 2.0 * target.step
 
+    def points(self, lengths: Array) -> Array:
+        """Predicted front points for each wheelbase in ``lengths``, ``(len(lengths) * m, 2)``."""
+        base = self.base + self.shift * self.n
+        return (base[None, :, :] + lengths[:, None, None] * self.u[None, :, :]).reshape(-1, 2)
+
+    def misses(self, length: float) -> tuple[np.ndarray, Array]:
+        """Valid mask and signed lateral miss (target minus prediction, along the left normal)
+        at one wheelbase, in rear-track order."""
+        pts = self.points(np.array([length]))
+        d, s, _, foot = self.target.index.nearest(pts)
+        t = self.target
+        valid = (s > self.edge) & (s < t.length - self.edge) & _interp_bool(t.has_data, s, t.step)
+        valid &= d * d < self.cap2
+        return valid, np.einsum("ij,ij->i", foot - pts, self.n)
+
     def many(self, lengths: Array) -> tuple[Array, Array]:
         m = len(self.base)
-        pts = (self.base[None, :, :] + lengths[:, None, None] * self.u[None, :, :]).reshape(-1, 2)
+        pts = self.points(lengths)
         d, s, _ = self.target.index.query(pts)
         t = self.target
         valid = (s > self.edge) & (s < t.length - self.edge) & _interp_bool(t.has_data, s, t.step)
@@ -167,6 +189,56 @@ def _fit(obj_coarse: _Objective, obj_fine: _Objective) -> tuple[float, float, in
     if grid_fine[0] < best[0]:
         length, best = float(_GRID[i]), grid_fine
     return length, float(best[0]), int(count[0])
+
+
+def _fit_with_shift(
+    coarse: _Objective,
+    fine: _Objective,
+    start: tuple[float, float, int],
+    corr_m: float,
+    step: float,
+) -> tuple[float, float, int, float]:
+    """Fit the wheelbase; then try a constant lateral shift of the prediction (same-side
+    tracks of axles with different track widths, or a survey offset between two walked lines)
+    and keep it only when it improves the fit by more than one parameter's worth. ``start`` is
+    the fit without a shift: (wheelbase, mse, samples used)."""
+    length, mse, n_used = start
+    if not np.isfinite(mse):
+        return length, mse, n_used, 0.0
+    shift = 0.0
+    best = (length, mse, n_used, 0.0)
+    for _ in range(3):
+        valid, miss = fine.misses(best[0])
+        if valid.sum() < fine.need:
+            break
+        shift = float(np.clip(shift + np.mean(miss[valid]), -SHIFT_MAX_M, SHIFT_MAX_M))
+        coarse.shift = fine.shift = shift
+        length2, mse2, n2 = _fit(coarse, fine)
+        if not np.isfinite(mse2):
+            break
+        best = (length2, mse2, n2, shift) if mse2 < best[1] else best
+    coarse.shift = fine.shift = best[3]
+    if best[3] != 0.0:
+        n_eff = max(best[2] * step / corr_m, 1.0)
+        raw0 = mse + length**2 * fine.tvar
+        gain = n_eff * (mse - best[1]) / max(raw0, RESIDUAL_FLOOR_M**2)
+        if gain < CHI2_95_1DOF:
+            coarse.shift = fine.shift = 0.0
+            return length, mse, n_used, 0.0
+    return best
+
+
+def _correlation_length(miss: Array, spacing: float) -> float:
+    """Integrated autocorrelation length (m) of a residual series, from its lag-1
+    autocorrelation under a first-order autoregressive model: spacing * (1 + r) / (1 - r)."""
+    if len(miss) < 8:
+        return float("inf")
+    x = miss - miss.mean()
+    den = float(np.dot(x, x))
+    if den <= 0:
+        return spacing
+    r = float(np.clip(np.dot(x[1:], x[:-1]) / den, 0.0, 0.999))
+    return spacing * (1.0 + r) / (1.0 - r)
 
 
 def _interval(obj: _Objective, length: float, mse0: float, scale: float) -> tuple[float, float]:
@@ -251,7 +323,7 @@ def solve_pair(first: CleanRut, second: CleanRut) -> PairResult:
     same_order = align > 0
 
     fits: list[HypothesisFit] = []
-    objs: dict[tuple[int, int], _Objective] = {}
+    objs: dict[tuple[int, int], tuple[_Objective, _Objective]] = {}
     for rear_i in (0, 1):
         rear, target = tracks[rear_i], tracks[1 - rear_i]
         coarse_idx = _subsample(overlaps[rear_i], 400)
@@ -265,19 +337,34 @@ def solve_pair(first: CleanRut, second: CleanRut) -> PairResult:
             fits.append(
                 HypothesisFit(rear_i, along, follows_first, length, mse, n_used, rear.tangent_var)
             )
-            objs[(rear_i, along)] = fine
+            objs[(rear_i, along)] = (coarse, fine)
     finite = [f for f in fits if np.isfinite(f.mse)]
     if not finite:
         return empty
     best = min(finite, key=lambda f: f.mse)
-    residual = float(np.sqrt(best.raw_mse))
-    tolerance = tol_base + 0.01 * best.wheelbase
     rear_track = tracks[best.rear]
     target_track = tracks[1 - best.rear]
-    # residuals are correlated over the smoothing window: count windows, not samples
-    stride = overlaps[best.rear].sum() / max(len(objs[(best.rear, best.along)].base), 1)
-    used_length = best.n_used * rear_track.step * max(stride, 1.0)
-    n_eff = max(used_length / max(rear_track.window_m, target_track.window_m), 1.0)
+    best_coarse, best_obj = objs[(best.rear, best.along)]
+    stride = overlaps[best.rear].sum() / max(len(best_obj.base), 1)
+    spacing = rear_track.step * max(stride, 1.0)
+    # the hypotheses are ranked without a lateral shift (a shift lets a wrong hypothesis mimic
+    # the right one on circles); the winner may then take one for its wheelbase and residual
+    window = max(rear_track.window_m, target_track.window_m)
+    length, mse, n_used, shift = _fit_with_shift(
+        best_coarse, best_obj, (best.wheelbase, best.mse, best.n_used), window, spacing
+    )
+    if shift != 0.0:
+        best = replace(best, wheelbase=length, mse=mse, n_used=n_used, shift=shift)
+    residual = float(np.sqrt(best.raw_mse))
+    tolerance = tol_base + 0.01 * best.wheelbase
+    # residuals are correlated (smoothing windows, slowly wandering GNSS error): count
+    # independent stretches of the residual series, not samples
+    used_length = best.n_used * spacing
+    valid, miss = best_obj.misses(best.wheelbase)
+    corr_len = max(
+        _correlation_length(miss[valid], spacing), rear_track.window_m, target_track.window_m
+    )
+    n_eff = max(used_length / corr_len, 1.0)
     scale = n_eff / max(best.raw_mse, RESIDUAL_FLOOR_M**2)
 
     def class_best(pred: Callable[[HypothesisFit], bool]) -> float:
@@ -310,7 +397,7 @@ def solve_pair(first: CleanRut, second: CleanRut) -> PairResult:
     )
     if residual > tolerance:
         return base
-    low, high = _interval(objs[(best.rear, best.along)], best.wheelbase, best.mse, scale)
+    low, high = _interval(best_obj, best.wheelbase, best.mse, scale)
     at_bound = best.wheelbase < WHEELBASE_MIN_M * 1.05 or best.wheelbase > WHEELBASE_MAX_M / 1.05
     open_interval = low <= WHEELBASE_MIN_M * 1.0001 or high >= WHEELBASE_MAX_M * 0.9999
     identifiable = not at_bound and not open_interval and (high - low) <= 0.5 * best.wheelbase

@@ -12,6 +12,7 @@ from __future__ import annotations
 import json
 import os
 import tempfile
+import warnings as _warnings
 from collections.abc import Mapping, Sequence
 from dataclasses import dataclass, field
 from pathlib import Path
@@ -75,8 +76,22 @@ class InputLayer:
         return np.concatenate(arrays) if arrays else np.empty((0, 2))
 
 
+#: shapely geometry type ids, for messages
+_TYPE_NAMES = {
+    0: "Point",
+    1: "LineString",
+    2: "LinearRing",
+    3: "Polygon",
+    4: "MultiPoint",
+    5: "MultiLineString",
+    6: "MultiPolygon",
+    7: "GeometryCollection",
+}
+
+
 def _is_line_type(geometry_type: str | None) -> bool:
-    return geometry_type is None or geometry_type in LINE_TYPES or geometry_type == "Unknown"
+    # None: a table without geometry (e.g. run_metadata of our own output)
+    return geometry_type is not None and (geometry_type in LINE_TYPES or geometry_type == "Unknown")
 
 
 def choose_layer(path: str, layer: str | None) -> str:
@@ -107,7 +122,9 @@ def choose_layer(path: str, layer: str | None) -> str:
         if not _is_line_type(gtype):
             continue
         try:
-            count = pyogrio.read_info(path, layer=str(name)).get("features", 0)
+            # GPX and other drivers without a fast count report -1 unless forced
+            info = pyogrio.read_info(path, layer=str(name), force_feature_count=True)
+            count = info.get("features", 0)
         except pyogrio.errors.DataSourceError:
             continue
         if count != 0:
@@ -129,6 +146,8 @@ def choose_layer(path: str, layer: str | None) -> str:
 
 def _short(exc: BaseException) -> str:
     text = str(exc).strip().splitlines()[0] if str(exc).strip() else type(exc).__name__
+    # GDAL's advice to prefix a driver name ('CSV:path') does not apply to rutwise users
+    text = text.split("; It might help to specify the correct driver")[0]
     return text[:200]
 
 
@@ -162,11 +181,12 @@ def read_layer(
     if Path(path).is_dir():
         raise BadInput(
             f"{path!r} is a folder, not a layer file.",
-            "Give one file (use `rutwise batch` for folders).",
+            "Give one layer file inside it.",
         )
     name = choose_layer(path, layer)
     try:
-        info = pyogrio.read_info(path, layer=name)
+        # GPX and other drivers without a fast count report -1 unless forced
+        info = pyogrio.read_info(path, layer=name, force_feature_count=max_features is not None)
         if max_features is not None and info.get("features", 0) > max_features:
             from .errors import LimitExceeded
 
@@ -174,7 +194,10 @@ def read_layer(
                 f"The layer has {info['features']} features; the limit is {max_features}.",
                 "Split the layer or raise the limit.",
             )
-        meta, fids, wkb, field_data = raw_read(path, layer=name, return_fids=True)
+        with _warnings.catch_warnings(record=True) as gdal_notes:
+            # GDAL reports what it changed (e.g. duplicate GeoJSON ids renumbered) as warnings
+            _warnings.simplefilter("always", RuntimeWarning)
+            meta, fids, wkb, field_data = raw_read(path, layer=name, return_fids=True)
     except (
         pyogrio.errors.DataSourceError,
         pyogrio.errors.DataLayerError,
@@ -195,13 +218,18 @@ def read_layer(
     geoms = shapely.from_wkb(wkb, on_invalid="ignore")
     parts, zs, skipped = _line_parts(geoms, ids)
     if not any(parts):
-        kinds = sorted({str(t) for t in shapely.get_type_id(geoms[~shapely.is_missing(geoms)])})
+        present = geoms[~shapely.is_missing(geoms)]
+        kinds = sorted({_TYPE_NAMES.get(int(t), "other") for t in shapely.get_type_id(present)})
         raise BadInput(
             f"Layer {name!r} of {path!r} holds no line geometries"
-            + (f" (geometry type ids: {', '.join(kinds)})." if kinds else "."),
+            + (f" (it holds: {', '.join(kinds)})." if kinds else "."),
             "Give LineString or MultiLineString features (GPX: tracks or routes).",
         )
-    warnings = []
+    warnings = [
+        "While reading: " + str(n.message).split(" This warning will not")[0][:200]
+        for n in gdal_notes
+        if issubclass(n.category, RuntimeWarning)
+    ]
     if len(set(ids)) != len(ids):
         warnings.append("Feature ids are not unique; source_fids may name several features.")
     keep = [i for i, p in enumerate(parts) if p]
@@ -228,13 +256,26 @@ def _feature_ids(
                 f"No attribute {id_field!r}; the layer has: {', '.join(fields) or 'none'}.",
                 "Name one of those with --id-field.",
             )
-        return ["" if v is None else str(v) for v in fields[id_field]]
+        return [_id_text(v) for v in fields[id_field]]
     if driver == "GeoJSON" and "id" in fields and fields["id"].dtype == object:
         # string ids of GeoJSON features surface as an `id` field; fill gaps with the index
         return [str(v) if v is not None else str(i) for i, v in enumerate(fields["id"])]
     if driver in ("GPKG", "GeoJSON", "GeoJSONSeq") and fids is not None:
         return [str(int(f)) for f in fids]
     return [str(i) for i in range(n)]
+
+
+def _id_text(value: Any) -> str:
+    """An attribute value as an id: integers read back as floats (a column with nulls) lose
+    their ``.0``; null and NaN give an empty string."""
+    if value is None:
+        return ""
+    if isinstance(value, float | np.floating):
+        if not np.isfinite(value):
+            return ""
+        if float(value).is_integer():
+            return str(int(value))
+    return str(value)
 
 
 def _line_parts(

@@ -22,7 +22,7 @@ import shapely
 
 from . import __version__
 from .clean import CleanRut, clean_rut
-from .curves import Array, as_linestrings, curvature
+from .curves import Array, as_linestrings
 from .errors import BadInput, CrsError
 from .frame import LocalFrame, build_frame, resolve_crs
 from .inference import PairResult
@@ -136,15 +136,28 @@ class AnalysisResult:
 
 
 def _rear_attributes(rut: CleanRut, wheelbase: float | None) -> tuple[float | None, float | None]:
-    """Minimum turning radius of the rear path and the largest steering angle it implies."""
-    k = np.abs(curvature(rut.tangents, rut.step))[rut.has_data]
-    if len(k) < 5:
+    """Minimum turning radius of the rear path and the largest steering angle it implies.
+
+    Curvature is the heading change across one smoothing window (not between neighbouring
+    samples, which only measures noise); its noise follows from the tangent variance. A path
+    whose curvature never rises clearly above that noise has no minimum radius (null).
+    """
+    heading = np.unwrap(np.arctan2(rut.tangents[:, 1], rut.tangents[:, 0]))
+    half = max(rut.window_pts // 2, 1)
+    if len(heading) <= 2 * half + 2:
         return None, None
-    # the 98th percentile ignores the last noise spikes of the curvature estimate
-    kmax = float(np.percentile(k, 98))
-    radius = 1.0 / kmax if kmax > 1e-4 else None
+    base = 2 * half * rut.step
+    kappa = np.abs(heading[2 * half :] - heading[: -2 * half]) / base
+    kappa = kappa[rut.has_data[half:-half]]
+    if len(kappa) < 5:
+        return None, None
+    noise = np.sqrt(2.0 * rut.tangent_var) / base
+    # the 95th percentile keeps a sharp turn but not a single noisy sample
+    kmax = float(np.percentile(kappa, 95))
+    if kmax <= 3.0 * noise or kmax < 1e-4:
+        return None, None
     steer = float(np.degrees(np.arctan(wheelbase * kmax))) if wheelbase is not None else None
-    return radius, steer
+    return 1.0 / kmax, steer
 
 
 def _make_pass(
