@@ -305,7 +305,7 @@ FRAMES = [
     du=st.lists(st.floats(-1.0, 1.0), min_size=1, max_size=20),
     dv=st.floats(-1.0, 1.0),
 )
-def test_round_trip_within_5e9_degrees_and_1e6_metres(
+def test_round_trip_within_1e9_degrees_and_1e6_metres(
     which: int, du: list[float], dv: float
 ) -> None:
     frame = FRAMES[which]
@@ -313,11 +313,16 @@ def test_round_trip_within_5e9_degrees_and_1e6_metres(
     lat = np.full(lon.size, frame.lat0 + 0.09 * dv)
     x, y = frame.to_local(lon, lat)
     back_lon, back_lat = frame.from_local(x, y)
-    # PROJ's azimuthal equidistant projection snaps points within about 1e-9 rad of the centre
-    # onto it (seen: 1.5e-9 degrees, 0.05 mm), so degrees are checked to 5e-9 (0.5 mm), still
-    # far inside the frame's 1 mm per km budget
-    assert np.abs((back_lon - lon + 180.0) % 360.0 - 180.0).max() < 5e-9
-    assert np.abs(back_lat - lat).max() < 5e-9
+    dlon = (back_lon - lon + 180.0) % 360.0 - 180.0
+    dlat = back_lat - lat
+    # PROJ's azimuthal equidistant inverse returns the centre itself for points within its
+    # 1e-10 (radians of arc) tolerance, about 0.64 mm: there the round trip is checked in
+    # metres (under 1 mm); everywhere else to 1e-9 degrees  # source: PROJ aeqd EPS10
+    near = np.hypot(x, y) < 1e-3
+    metres = np.hypot(dlon * 111_320.0 * np.cos(np.radians(lat)), dlat * 110_540.0)
+    assert metres.max() < 1e-3
+    assert np.abs(dlon[~near]).max(initial=0.0) < 1e-9
+    assert np.abs(dlat[~near]).max(initial=0.0) < 1e-9
     x2, y2 = frame.to_local(back_lon, back_lat)
     assert np.hypot(x2 - x, y2 - y).max() < 1e-6
 
