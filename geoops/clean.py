@@ -66,6 +66,7 @@ class CleanRut:
     window_m: float
     raw_length: float
     raw_xy: Array = field(repr=False)
+    raw_gap_after: NDArrayBool = field(repr=False)
     tangents: Array = field(repr=False)
     tangent_var: float
     index: NearestOnPolyline = field(repr=False, compare=False)
@@ -194,6 +195,27 @@ def _tangent_variance(
     return float(np.mean(theta**2)) if len(theta) else 0.0
 
 
+def join_parts(parts: list[Array]) -> tuple[Array, Array]:
+    """Join a rut's parts into one line: drop repeats and spikes, chain the parts.
+
+    Returns
+    -------
+    xy, gap_after
+        Vertices, and per vertex whether the segment starting there bridges a gap.
+
+    Raises
+    ------
+    BadInput
+        When fewer than two distinct vertices remain.
+    """
+    cleaned_parts = [drop_spikes(drop_repeats(np.asarray(p, dtype=np.float64))) for p in parts]
+    xy, gap_after = chain_parts(cleaned_parts)
+    if len(xy) < 2:
+        raise BadInput("A rut has fewer than two distinct vertices.", "Remove or fix that line.")
+    keep = np.concatenate([[True], np.hypot(*np.diff(xy, axis=0).T) > 1e-9])
+    return xy[keep], gap_after[keep]
+
+
 def clean_rut(parts: list[Array], accuracy: float | None = None) -> CleanRut:
     """Clean one rut given as one or more parts in the local metric frame.
 
@@ -209,12 +231,22 @@ def clean_rut(parts: list[Array], accuracy: float | None = None) -> CleanRut:
     BadInput
         When the rut has fewer than two distinct vertices.
     """
-    cleaned_parts = [drop_spikes(drop_repeats(np.asarray(p, dtype=np.float64))) for p in parts]
-    xy, gap_after = chain_parts(cleaned_parts)
+    return clean_line(*join_parts(parts), accuracy=accuracy)
+
+
+def clean_line(
+    xy: Array,
+    gap_after: np.ndarray,
+    accuracy: float | None = None,
+    estimated_sigma: float | None = None,
+) -> CleanRut:
+    """Clean one joined line (see :func:`join_parts`).
+
+    ``estimated_sigma`` reuses a noise estimate made on a longer line (e.g. the whole rut when
+    this is one leg of it); it is reported as estimated, not stated.
+    """
     if len(xy) < 2:
         raise BadInput("A rut has fewer than two distinct vertices.", "Remove or fix that line.")
-    keep = np.concatenate([[True], np.hypot(*np.diff(xy, axis=0).T) > 1e-9])
-    xy, gap_after = xy[keep], gap_after[keep]
     s_raw = arc_length(xy)
     seg = np.diff(s_raw)
     gap_seg = gap_after[:-1]
@@ -226,6 +258,8 @@ def clean_rut(parts: list[Array], accuracy: float | None = None) -> CleanRut:
 
     if accuracy is not None and accuracy > 0:
         sigma, source = float(accuracy), "stated"
+    elif estimated_sigma is not None:
+        sigma, source = float(estimated_sigma), "estimated"
     else:
         w0 = _window_for(0.0, spacing, total)
         step0 = float(np.clip(min(w0 / 10.0, spacing / 2.0), 0.02, 0.5))
@@ -257,6 +291,7 @@ def clean_rut(parts: list[Array], accuracy: float | None = None) -> CleanRut:
         window_m=window,
         raw_length=raw_length,
         raw_xy=xy,
+        raw_gap_after=gap_after,
         tangents=tangents,
         tangent_var=tangent_var,
         index=NearestOnPolyline(sm),

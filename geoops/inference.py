@@ -129,7 +129,9 @@ class _Objective:
         self.tvar = rear.tangent_var
         self.target = target
         self.cap2 = cap * cap
-        self.need = max(8, int(0.5 * len(idx)))
+        # at least a quarter of the overlap: a short leg (a three-point turn) may see its front
+        # track only over its length minus one wheelbase
+        self.need = max(8, int(0.25 * len(idx)))
         self.edge = 2.0 * target.step
 
     def points(self, lengths: Array) -> Array:
@@ -158,7 +160,7 @@ class _Objective:
         r = r.reshape(len(lengths), m)
         count = valid.sum(axis=1)
         mse = (r * valid).sum(axis=1) / np.maximum(count, 1) - lengths**2 * self.tvar
-        mse = np.where(count >= self.need, np.maximum(mse, 0.0), np.inf)
+        mse = np.where(count >= self.need, mse, np.inf)
         return mse, count
 
     def one(self, length: float) -> float:
@@ -356,6 +358,9 @@ def solve_pair(first: CleanRut, second: CleanRut) -> PairResult:
     if shift != 0.0:
         best = replace(best, wheelbase=length, mse=mse, n_used=n_used, shift=shift)
     residual = float(np.sqrt(best.raw_mse))
+    # judged on the misfit left after removing the expected tangent-noise part (a short leg's
+    # tangents are noisy, and that noise, carried one wheelbase forward, is not a misfit)
+    misfit = float(np.sqrt(max(best.mse, 0.0)))
     tolerance = tol_base + 0.01 * best.wheelbase
     # residuals are correlated (smoothing windows, slowly wandering GNSS error): count
     # independent stretches of the residual series, not samples
@@ -395,7 +400,7 @@ def solve_pair(first: CleanRut, second: CleanRut) -> PairResult:
         n_eff=n_eff,
         fits=tuple(fits),
     )
-    if residual > tolerance:
+    if misfit > tolerance:
         return base
     low, high = _interval(best_obj, best.wheelbase, best.mse, scale)
     at_bound = best.wheelbase < WHEELBASE_MIN_M * 1.05 or best.wheelbase > WHEELBASE_MAX_M / 1.05

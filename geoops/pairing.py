@@ -33,9 +33,10 @@ class Pairing:
     unpaired: dict[int, str]
 
 
-def candidate_pairs(ruts: list[CleanRut]) -> list[tuple[int, int]]:
-    """Index pairs ``(i, j)``, ``i < j``, of ruts that run near each other for a good part of
-    the shorter one."""
+def candidate_pairs(ruts: list[CleanRut]) -> list[tuple[int, int, float]]:
+    """Pairs ``(i, j, shared)``, ``i < j``, of ruts that run near each other; ``shared`` is the
+    fraction of the shorter rut within :data:`NEIGHBOUR_DISTANCE_M` of the other (at least
+    :data:`MIN_SHARED_FRACTION`)."""
     if len(ruts) < 2:
         return []
     lines = as_linestrings([r.xy for r in ruts])
@@ -46,30 +47,38 @@ def candidate_pairs(ruts: list[CleanRut]) -> list[tuple[int, int]]:
     for i, j in zip(left[keep].tolist(), right[keep].tolist(), strict=True):
         a, b = (ruts[i], ruts[j]) if ruts[i].length <= ruts[j].length else (ruts[j], ruts[i])
         d, _, _ = b.index.query(a.xy[:: max(len(a.xy) // 200, 1)])
-        if np.mean(d <= NEIGHBOUR_DISTANCE_M) >= MIN_SHARED_FRACTION:
-            out.append((i, j))
+        shared = float(np.mean(d <= NEIGHBOUR_DISTANCE_M))
+        if shared >= MIN_SHARED_FRACTION:
+            out.append((i, j, shared))
     return out
 
 
-def _rank(result: PairResult) -> tuple[int, float]:
-    order = {"decided": 0, "ambiguous": 1, "undetermined": 2}
-    return order.get(result.verdict, 3), result.residual / max(result.tolerance, 1e-9)
+def _rank(result: PairResult, shared: float) -> float:
+    """Smaller is better: misfit relative to the tolerance, plus a penalty for ruts that run
+    together only part of the way (legs of a manoeuvre overlap their own partner fully)."""
+    return result.residual / max(result.tolerance, 1e-9) + 2.0 * (1.0 - shared)
 
 
-def choose_pairs(ruts: list[CleanRut]) -> Pairing:
-    """Pair ruts: judge every candidate pair, accept the best fitting first, each rut once."""
+def choose_pairs(ruts: list[CleanRut], same_line: list[int] | None = None) -> Pairing:
+    """Pair ruts: judge every candidate pair, accept the best fitting first, each rut once.
+
+    ``same_line`` gives, per rut, the input line it was cut from (legs of one line, split at
+    its reversals); legs of one line are never paired with each other.
+    """
     cands = candidate_pairs(ruts)
-    judged = [(i, j, solve_pair(ruts[i], ruts[j])) for i, j in cands]
-    fitting = [c for c in judged if c[2].verdict != "not_a_pair"]
-    fitting.sort(key=lambda c: _rank(c[2]))
+    if same_line is not None:
+        cands = [c for c in cands if same_line[c[0]] != same_line[c[1]]]
+    judged = [(i, j, shared, solve_pair(ruts[i], ruts[j])) for i, j, shared in cands]
+    fitting = [c for c in judged if c[3].verdict != "not_a_pair"]
+    fitting.sort(key=lambda c: _rank(c[3], c[2]))
     used: set[int] = set()
     pairs = []
-    for i, j, res in fitting:
+    for i, j, _, res in fitting:
         if i in used or j in used:
             continue
         used.update((i, j))
         pairs.append((i, j, res))
-    had_neighbour = {k for i, j in cands for k in (i, j)}
+    had_neighbour = {k for i, j, _ in cands for k in (i, j)}
     unpaired = {
         k: ("not_a_pair" if k in had_neighbour else "no_partner")
         for k in range(len(ruts))

@@ -25,9 +25,9 @@ from .clean import CleanRut, clean_rut
 from .curves import Array, as_linestrings
 from .errors import BadInput, CrsError
 from .frame import LocalFrame, build_frame, resolve_crs
-from .inference import PairResult
 from .io import InputLayer, OutputLayer, read_layer, write_geojson, write_geopackage
 from .pairing import choose_pairs
+from .passes import Leg, LegPass, assemble, split_into_legs
 from .vehicles import suggest_class
 
 CAUTION = (
@@ -38,7 +38,9 @@ CAUTION = (
 )
 GEAR_ASSUMPTION = (
     "gear: the geometry fixes which end of the vehicle was in front, not whether it was driven "
-    "forwards; a pass without cusps is assumed to have been driven forward."
+    "forwards. Ruts are cut into legs where they turn back (reversals); legs alternate between "
+    "forward and reverse, and the reading in which the greater distance was driven forward is "
+    "taken, so a pass without cusps is assumed to have been driven forward."
 )
 
 #: contract field types, in order (design section 4)
@@ -60,6 +62,8 @@ PASS_FIELDS = {
     "length_m": "real",
     "rut_ids": "text",
     "source_fids": "text",
+    "leg": "int",
+    "pass_group": "int",
 }
 RUT_FIELDS = {
     "rut_id": "int",
@@ -111,6 +115,8 @@ class PassRecord:
     rut_ids: str
     source_fids: str
     geometry: Array = field(repr=False)  # local frame, vertex order = travel when decided
+    leg: int = 1  # position along the manoeuvre, 1-based (legs are split at reversals)
+    pass_group: int = 0  # pass_id of the first leg of the same manoeuvre
 
 
 @dataclass
@@ -160,43 +166,36 @@ def _rear_attributes(rut: CleanRut, wheelbase: float | None) -> tuple[float | No
     return 1.0 / kmax, steer
 
 
-def _make_pass(
-    pass_id: int, i: int, j: int, res: PairResult, ruts: list[CleanRut], ids: list[str]
-) -> tuple[PassRecord, dict[int, tuple[str, bool]]]:
-    """A pass record from a judged pair (tracks i, j), and per rut: wheel label, reverse it?"""
-    tracks = (i, j)
-    rear_pos = res.rear if res.rear is not None else 0
-    rear = ruts[tracks[rear_pos]]
-    decided = res.verdict == "decided"
-    geom = rear.xy if not decided or res.follows(rear_pos) else rear.xy[::-1]
-    flips: dict[int, tuple[str, bool]] = {}
-    for pos, k in enumerate(tracks):
-        wheel = "unassigned" if res.rear is None else ("rear" if pos == res.rear else "front")
-        flips[k] = (wheel, decided and not res.follows(pos))
+def _make_pass(pass_id: int, lp: LegPass, legs: list[Leg], ids: list[str]) -> PassRecord:
+    """A `passes` record for one leg of a pass."""
+    res = lp.result
+    rear = legs[lp.rear_leg].track
+    geom = rear.xy if lp.motion_follows_rear in (None, True) else rear.xy[::-1]
     radius, steer = _rear_attributes(rear, res.wheelbase)
     tol = max(rear.sigma, 0.005)
     simple = shapely.get_coordinates(shapely.simplify(shapely.LineString(geom), tol * 0.5))
-    record = PassRecord(
+    ruts = sorted({legs[lp.rear_leg].rut, legs[lp.front_leg].rut})
+    return PassRecord(
         pass_id=pass_id,
-        verdict=res.verdict,
-        confidence=res.confidence if decided else 0.5,
+        verdict=lp.verdict,
+        confidence=lp.confidence,
         wheelbase_m=res.wheelbase,
         wheelbase_low_m=res.wheelbase_low,
         wheelbase_high_m=res.wheelbase_high,
         track_width_m=None,
         wheel_tracks=2,
         vehicle_class=suggest_class(res.wheelbase, None, True),
-        gear="forward",
-        reversals=0,
+        gear=lp.gear,
+        reversals=lp.reversals,
         min_turn_radius_m=radius,
         max_steer_deg=steer,
         residual_m=res.residual,
         length_m=float(rear.raw_length),
-        rut_ids="",
-        source_fids=",".join(ids[k] for k in sorted(tracks)),
+        rut_ids=",".join(str(k + 1) for k in ruts),
+        source_fids=",".join(ids[k] for k in ruts),
         geometry=simple,
+        leg=lp.order + 1,
     )
-    return record, flips
 
 
 def analyze_layer(layer: InputLayer, options: AnalyzeOptions = AnalyzeOptions()) -> AnalysisResult:
@@ -206,43 +205,64 @@ def analyze_layer(layer: InputLayer, options: AnalyzeOptions = AnalyzeOptions())
     frame, warnings = build_frame(xy_all[:, 0], xy_all[:, 1], crs)
     warnings = list(layer.warnings) + list(warnings)
     accuracies = _accuracies(layer, options)
-    ruts: list[CleanRut] = []
-    rut_ids: list[int] = []
-    ruts_out: list[RutRecord] = []
+    ruts: dict[int, CleanRut] = {}
+    legs: list[Leg] = []
     bad: list[tuple[int, str]] = []
     for k, parts in enumerate(layer.parts):
         local = [np.column_stack(frame.to_local(p[:, 0], p[:, 1])) for p in parts]
         try:
-            ruts.append(clean_rut(local, accuracies[k]))
-            rut_ids.append(k)
+            ruts[k] = clean_rut(local, accuracies[k])
         except BadInput as exc:
             bad.append((k, exc.message))
-    pairing = choose_pairs(ruts)
+            continue
+        legs.extend(split_into_legs(k, ruts[k], accuracies[k]))
+    pairing = choose_pairs([leg.track for leg in legs], [leg.rut for leg in legs])
+    leg_passes = assemble(pairing.pairs, legs)
     passes: list[PassRecord] = []
-    labels: dict[int, tuple[int, str, bool, str]] = {}
-    for n, (a, b, res) in enumerate(pairing.pairs, start=1):
-        record, flips = _make_pass(n, a, b, res, ruts, [layer.ids[r] for r in rut_ids])
-        record.rut_ids = ",".join(str(rut_ids[k] + 1) for k in sorted((a, b)))
+    group_first: dict[int, int] = {}
+    # per input rut: pass group id, wheel, verdict, and whether motion follows its vertex order
+    rut_info: dict[int, tuple[int, str, str, bool | None]] = {}
+    for n, lp in enumerate(leg_passes, start=1):
+        record = _make_pass(n, lp, legs, layer.ids)
+        record.pass_group = group_first.setdefault(lp.group, n)
         passes.append(record)
-        for k, (wheel, reverse) in flips.items():
-            labels[k] = (n, wheel, reverse, res.verdict)
-    for k, rut in enumerate(ruts):
-        src = rut_ids[k]
-        if k in labels:
-            pid, wheel, reverse, verdict = labels[k]
-            geom = rut.raw_xy[::-1] if reverse else rut.raw_xy
+        res = lp.result
+        rear_pos = 0 if lp.pair[0] == lp.rear_leg else 1
+        for leg_index, wheel_pos in ((lp.rear_leg, rear_pos), (lp.front_leg, 1 - rear_pos)):
+            rut_k = legs[leg_index].rut
+            wheel = (
+                "unassigned" if res.rear is None else ("rear" if wheel_pos == res.rear else "front")
+            )
+            follows = None
+            if lp.motion_follows_rear is not None:
+                # leg vertex order = rut vertex order; relate the two tracks' orders
+                same = True if leg_index == lp.rear_leg else res.same_order
+                follows = lp.motion_follows_rear == same
+            if rut_k not in rut_info or (rut_info[rut_k][3] is None and follows is not None):
+                rut_info[rut_k] = (record.pass_group, wheel, lp.verdict, follows)
+    unpaired_reason: dict[int, str] = {}
+    for leg_index, reason in pairing.unpaired.items():
+        rut_k = legs[leg_index].rut
+        unpaired_reason.setdefault(rut_k, reason)
+        if reason == "not_a_pair":
+            unpaired_reason[rut_k] = reason
+    ruts_out: list[RutRecord] = []
+    for k, rut in ruts.items():
+        if k in rut_info:
+            pid, wheel, verdict, follows = rut_info[k]
+            geom = rut.raw_xy[::-1] if follows is False else rut.raw_xy
             ruts_out.append(
-                RutRecord(src + 1, pid, wheel, verdict, None, layer.ids[src], rut.raw_length, geom)
+                RutRecord(k + 1, pid, wheel, verdict, None, layer.ids[k], rut.raw_length, geom)
             )
         else:
             ruts_out.append(
                 RutRecord(
-                    src + 1,
+                    k + 1,
                     None,
                     "unassigned",
                     "unpaired",
-                    pairing.unpaired.get(k, "no_partner"),
-                    layer.ids[src],
+                    unpaired_reason.get(k, "no_partner"),
+                    layer.ids[k],
                     rut.raw_length,
                     rut.raw_xy,
                 )
@@ -258,7 +278,7 @@ def analyze_layer(layer: InputLayer, options: AnalyzeOptions = AnalyzeOptions())
     ruts_out.sort(key=lambda r: r.rut_id)
     for fid, reason in layer.skipped:
         warnings.append(f"Feature {fid} skipped: {reason.replace('_', ' ')}.")
-    metadata = _metadata(layer, options, frame, crs, ruts, warnings, len(passes))
+    metadata = _metadata(layer, options, frame, crs, list(ruts.values()), warnings, len(passes))
     return AnalysisResult(passes, ruts_out, frame, crs, metadata, warnings)
 
 
