@@ -146,7 +146,6 @@ def _assemble_group(
     wb = float(np.median(lengths)) if lengths else None
     front_ruts = {legs[f].rut for _, _, f, _ in items}
     rear_leg0 = legs[items[0][1]]
-    cusps = [r for r in rear_leg0.reversals if r.is_cusp]
     front_corners = [r for f in front_ruts for r in _rut_reversals(legs, f)]
     for k, cusp in enumerate(sorted(rear_leg0.reversals, key=lambda r: r.s)):
         if not cusp.is_cusp:
@@ -159,7 +158,6 @@ def _assemble_group(
         # when before_follows; leg k has parity relative to the reference leg
         sign = 1 if (k - ref_number) % 2 == 0 else -1
         log_odds += CUSP_LOG_ODDS * (1 if ev.before_follows else -1) * sign
-    del cusps
     log_odds = float(np.clip(log_odds, -MAX_LOG_ODDS, MAX_LOG_ODDS))
     p_ref = 1.0 / (1.0 + np.exp(-log_odds))
     conflicting = len(signs) > 1 and max(p_ref, 1 - p_ref) < DECIDE_AT
