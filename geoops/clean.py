@@ -280,8 +280,10 @@ def clean_line(
     gap_start = s_raw[:-1][gap_seg]
     gap_end = s_raw[1:][gap_seg]
     has_data = np.ones(len(s), dtype=bool)
+    # ... nor do samples within half a window of a gap: their local fits reach into the bridge
+    half = 0.5 * window
     for a, b in zip(gap_start, gap_end, strict=True):
-        has_data &= ~((s > a) & (s < b))
+        has_data &= ~((s > a - half) & (s < b + half))
     return CleanRut(
         xy=sm,
         step=float(s[1] - s[0]) if len(s) > 1 else step,

@@ -33,6 +33,12 @@ RESIDUAL_FLOOR_M = 0.005
 #: largest lateral shift between same-side front and rear tracks, metres: half the largest
 #: front/rear track difference of a tractor (1.5-2.3 m adjustable track)  # common practice
 SHIFT_MAX_M = 0.5
+#: temperature of the direction odds: the likelihood ratio is divided by it before it becomes
+#: a probability (temperature scaling; Guo et al., "On Calibration of Modern Neural Networks",
+#: ICML 2017). bench/accuracy.py's reliability table is the check: with the effective sample
+#: count taken from the residuals' own correlation, 1.0 keeps white-noise passes calibrated;
+#: raising it trades decided passes for safety under correlated survey error.
+CONFIDENCE_TEMPERATURE = 1.0
 #: largest log-odds reported; keeps confidences finite and below 1 - 1e-13
 MAX_LOG_ODDS = 30.0
 
@@ -231,16 +237,25 @@ def _fit_with_shift(
 
 
 def _correlation_length(miss: Array, spacing: float) -> float:
-    """Integrated autocorrelation length (m) of a residual series, from its lag-1
-    autocorrelation under a first-order autoregressive model: spacing * (1 + r) / (1 - r)."""
-    if len(miss) < 8:
+    """Integrated autocorrelation length (m) of a residual series: spacing times
+    1 + 2 * (sum of the autocorrelations up to the first that is not positive), Geyer's
+    initial positive sequence (Geyer, "Practical Markov Chain Monte Carlo", Statistical
+    Science 7(4), 1992). Catches slowly wandering error even under white noise, which a lag-1
+    estimate would miss."""
+    n = len(miss)
+    if n < 8:
         return float("inf")
     x = miss - miss.mean()
     den = float(np.dot(x, x))
     if den <= 0:
         return spacing
-    r = float(np.clip(np.dot(x[1:], x[:-1]) / den, 0.0, 0.999))
-    return spacing * (1.0 + r) / (1.0 - r)
+    size = 1 << (2 * n - 1).bit_length()
+    f = np.fft.rfft(x, size)
+    acf = np.fft.irfft(f * np.conj(f), size)[: n // 2] / den
+    stop = np.flatnonzero(acf[1:] <= 0.0)
+    k = int(stop[0]) + 1 if len(stop) else len(acf)
+    tau = 1.0 + 2.0 * float(np.sum(acf[1:k]))
+    return spacing * max(tau, 1.0)
 
 
 def _interval(obj: _Objective, length: float, mse0: float, scale: float) -> tuple[float, float]:
@@ -378,10 +393,10 @@ def solve_pair(first: CleanRut, second: CleanRut) -> PairResult:
 
     mse_fwd = class_best(lambda f: f.follows_first)
     mse_bwd = class_best(lambda f: not f.follows_first)
-    p_first = _sigmoid(0.5 * scale * (mse_bwd - mse_fwd))
+    p_first = _sigmoid(0.5 * scale * (mse_bwd - mse_fwd) / CONFIDENCE_TEMPERATURE)
     mse_r0 = class_best(lambda f: f.rear == 0)
     mse_r1 = class_best(lambda f: f.rear == 1)
-    p_rear_first = _sigmoid(0.5 * scale * (mse_r1 - mse_r0))
+    p_rear_first = _sigmoid(0.5 * scale * (mse_r1 - mse_r0) / CONFIDENCE_TEMPERATURE)
 
     base = PairResult(
         verdict="not_a_pair",

@@ -152,7 +152,10 @@ def _assemble_group(
             continue
         lo_l, hi_l = (0.6 * wb, 1.6 * wb) if wb else (WHEELBASE_MIN_M, WHEELBASE_MAX_M)
         ev = judge_cusp(cusp, front_corners, lo_l, hi_l)
-        if ev is None:
+        # a cusp is evidence only where the tracks are sharp enough to place it: three sigma
+        # of the pair within 15 % of the wheelbase (else noise makes and moves cusps)
+        sigma_pair = float(np.hypot(rear_leg0.track.sigma, legs[items[0][2]].track.sigma))
+        if ev is None or 3.0 * sigma_pair > 0.15 * ev.wheelbase:
             continue
         # the cusp ends leg k of the rear rut (vertex order): its heading follows that order
         # when before_follows; leg k has parity relative to the reference leg
