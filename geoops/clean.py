@@ -80,8 +80,37 @@ class CleanRut:
         return max(int(round(self.window_m / self.step)), 5)
 
 
+#: metres of extra gap a radian of heading change costs when chaining parts: a part that
+#: continues the line's heading across a gap wins over a nearer one that turns away
+TURN_COST_M_PER_RAD = 2.0
+#: arc length over which a part's end heading is read, metres
+END_HEADING_M = 1.0
+
+
+def _end_heading(p: Array, at_start: bool) -> Array:
+    """Unit heading leaving a part at one end, away from the part (over END_HEADING_M)."""
+    s = arc_length(p)
+    if at_start:
+        k = int(np.searchsorted(s, min(END_HEADING_M, s[-1])))
+        v = p[0] - p[min(k, len(p) - 1)]
+    else:
+        k = int(np.searchsorted(s, s[-1] - min(END_HEADING_M, s[-1])))
+        v = p[-1] - p[max(k, 0)] if k < len(p) - 1 else p[-1] - p[0]
+    n = float(np.hypot(*v))
+    return v / n if n > 0 else v
+
+
+def _angle(a: Array, b: Array) -> float:
+    return float(np.arccos(np.clip(np.dot(a, b), -1.0, 1.0)))
+
+
 def chain_parts(parts: list[Array]) -> tuple[Array, Array]:
-    """Join the parts of one rut end to end, nearest ends first, reversing parts as needed.
+    """Join the parts of one rut end to end, reversing parts as needed.
+
+    Parts are attached to the growing line (longest first) by the cheapest join: the gap's
+    length plus :data:`TURN_COST_M_PER_RAD` for each radian the line would have to turn to
+    cross the gap and carry on along the part. Heading continuity keeps a looping rut in order
+    where the nearest end belongs to another turn of the loop.
 
     Returns
     -------
@@ -105,25 +134,41 @@ def chain_parts(parts: list[Array]) -> tuple[Array, Array]:
     chain = [parts[order[0]]]
     rest = [parts[i] for i in order[1:]]
     while rest:
-        head, tail = chain[0][0], chain[-1][-1]
-        ends = np.array([[p[0], p[-1]] for p in rest])  # (k, 2, 2)
-        d_tail = np.hypot(*(ends - tail).transpose(2, 0, 1))  # (k, 2)
-        d_head = np.hypot(*(ends - head).transpose(2, 0, 1))
-        if d_tail.min() <= d_head.min():
-            k, e = np.unravel_index(np.argmin(d_tail), d_tail.shape)
-            p = rest.pop(int(k))
-            chain.append(p if e == 0 else p[::-1])
+        # leaving the line at its tail (forwards) or its head (backwards)
+        ends = [(chain[-1][-1], _end_heading(chain[-1], at_start=False), True),
+                (chain[0][0], _end_heading(chain[0], at_start=True), False)]
+        best: tuple[float, int, bool, bool] | None = None
+        for k, p in enumerate(rest):
+            for point, heading, at_tail in ends:
+                for flip in (False, True):
+                    q = p[::-1] if flip else p
+                    # the part's end that meets the line, and its heading into the part
+                    meet = q[0] if at_tail else q[-1]
+                    into = -_end_heading(q, at_start=at_tail)
+                    bridge = meet - point
+                    gap = float(np.hypot(*bridge))
+                    turn = _angle(heading, into)
+                    if gap > 1e-9:
+                        b = bridge / gap
+                        turn = _angle(heading, b) + _angle(b, into)
+                    cost = gap + TURN_COST_M_PER_RAD * turn
+                    if best is None or cost < best[0]:
+                        best = (cost, k, at_tail, flip)
+        assert best is not None
+        _, k, at_tail, flip = best
+        p = rest.pop(k)
+        p = p[::-1] if flip else p
+        if at_tail:
+            chain.append(p)
         else:
-            k, e = np.unravel_index(np.argmin(d_head), d_head.shape)
-            p = rest.pop(int(k))
-            chain.insert(0, p if e == 1 else p[::-1])
-    gap = []
+            chain.insert(0, p)
+    gap_after = []
     for i, p in enumerate(chain):
         g = np.zeros(len(p), dtype=bool)
         if i < len(chain) - 1:
             g[-1] = True
-        gap.append(g)
-    return np.concatenate(chain), np.concatenate(gap)
+        gap_after.append(g)
+    return np.concatenate(chain), np.concatenate(gap_after)
 
 
 def drop_spikes(xy: Array, passes: int = 2) -> Array:
