@@ -21,10 +21,12 @@ import pyproj
 import shapely
 
 from . import __version__
+from .axles import same_vehicle, spacing
 from .clean import CleanRut, clean_rut
 from .curves import Array, as_linestrings
 from .errors import BadInput, CrsError
 from .frame import LocalFrame, build_frame, resolve_crs
+from .inference import DECIDE_AT, MAX_LOG_ODDS, PairResult
 from .io import InputLayer, OutputLayer, read_layer, write_geojson, write_geopackage
 from .pairing import choose_pairs
 from .passes import Leg, LegPass, assemble, split_into_legs
@@ -198,6 +200,152 @@ def _make_pass(pass_id: int, lp: LegPass, legs: list[Leg], ids: list[str]) -> Pa
     )
 
 
+def _leg_labels(lp: LegPass, legs: list[Leg]) -> dict[int, tuple[str, bool | None]]:
+    """Wheel label of each rut of one leg pair, and whether travel follows its vertex order."""
+    res = lp.result
+    rear_pos = 0 if lp.pair[0] == lp.rear_leg else 1
+    out: dict[int, tuple[str, bool | None]] = {}
+    for leg_index, wheel_pos in ((lp.rear_leg, rear_pos), (lp.front_leg, 1 - rear_pos)):
+        wheel = "unassigned" if res.rear is None else ("rear" if wheel_pos == res.rear else "front")
+        follows = None
+        if lp.motion_follows_rear is not None:
+            # leg vertex order = rut vertex order; relate the two tracks' orders
+            same = True if leg_index == lp.rear_leg else res.same_order
+            follows = lp.motion_follows_rear == same
+        out[legs[leg_index].rut] = (wheel, follows)
+    return out
+
+
+def _axle_units(leg_passes: list[LegPass], legs: list[Leg]) -> list[tuple[int, ...]]:
+    """Leg passes grouped into units: two side pairs of one four-wheeled vehicle, or one pair.
+
+    Only passes without reversals are joined for now; the closest-to-parallel pairs first.
+    """
+    single = [i for i, lp in enumerate(leg_passes) if lp.reversals == 0]
+    cands = []
+    for a_pos, a in enumerate(single):
+        for b in single[a_pos + 1 :]:
+            la, lb = leg_passes[a], leg_passes[b]
+            sp = same_vehicle(
+                legs[la.rear_leg].track,
+                legs[lb.rear_leg].track,
+                la.result.wheelbase,
+                lb.result.wheelbase,
+            )
+            if sp is not None:
+                cands.append((sp.spread, a, b))
+    used: set[int] = set()
+    units: list[tuple[int, ...]] = []
+    for _, a, b in sorted(cands):
+        if a in used or b in used:
+            continue
+        used.update((a, b))
+        units.append((a, b))
+    units.extend((i,) for i in range(len(leg_passes)) if i not in used)
+    return sorted(units, key=lambda u: min(u))
+
+
+def _combined_wheelbase(
+    results: list[PairResult],
+) -> tuple[float | None, float | None, float | None]:
+    """Inverse-variance mean of the sides' wheelbases; the 95 % half-widths give the variances."""
+    est = [
+        (r.wheelbase, r.wheelbase_low, r.wheelbase_high)
+        for r in results
+        if r.wheelbase is not None and r.wheelbase_low is not None and r.wheelbase_high is not None
+    ]
+    if not est:
+        return None, None, None
+    w = np.array([1.0 / max((hi - lo) / 3.92, 1e-6) ** 2 for _, lo, hi in est])
+    value = float(np.sum(w * np.array([e[0] for e in est])) / w.sum())
+    half = 1.96 / float(np.sqrt(w.sum()))
+    return value, value - half, value + half
+
+
+def _side_log_odds(lp: LegPass) -> float:
+    """Log-odds that travel follows the rear leg's vertex order (0 when not decided)."""
+    if lp.verdict != "decided" or lp.motion_follows_rear is None:
+        return 0.0
+    p = min(max(lp.confidence, 1e-13), 1 - 1e-13)
+    lo = float(np.log(p / (1 - p)))
+    return lo if lp.motion_follows_rear else -lo
+
+
+def _make_axle_pass(
+    pass_id: int, a: LegPass, b: LegPass, legs: list[Leg], ids: list[str]
+) -> tuple[PassRecord, dict[int, tuple[str, bool | None]]]:
+    """One `passes` record for a four-wheeled vehicle seen as two side pairs, and the labels
+    of its four ruts. Geometry: the rear-axle midpoint path (midway between the rear tracks)."""
+    rear_a, rear_b = legs[a.rear_leg].track, legs[b.rear_leg].track
+    sp = spacing(rear_a, rear_b)
+    lo = _side_log_odds(a) + _side_log_odds(b) * (1 if sp.same_order else -1)
+    lo = float(np.clip(lo, -MAX_LOG_ODDS, MAX_LOG_ODDS))
+    p = 1.0 / (1.0 + np.exp(-lo))
+    decided = max(p, 1 - p) >= DECIDE_AT
+    sides_decided = [x.motion_follows_rear for x in (a, b) if x.verdict == "decided"]
+    mixed = len(sides_decided) == 2 and (sides_decided[0] == sides_decided[1]) != sp.same_order
+    follows_a = (lo > 0) if decided and not mixed else None
+    d, s, _, foot = rear_b.index.nearest(rear_a.xy)
+    inside = (s > 2 * rear_b.step) & (s < rear_b.length - 2 * rear_b.step)
+    mid = 0.5 * (rear_a.xy[inside] + foot[inside])
+    geom = mid if follows_a in (None, True) else mid[::-1]
+    wb, wb_low, wb_high = _combined_wheelbase([a.result, b.result])
+    if mixed:
+        verdict = "mixed"
+    elif follows_a is not None:
+        verdict = "decided"
+    elif wb is not None:
+        verdict = "ambiguous"
+    else:
+        verdict = "undetermined"
+    radius, steer = _rear_attributes(rear_a, wb)
+    simple = shapely.get_coordinates(
+        shapely.simplify(shapely.LineString(geom), 0.5 * max(rear_a.sigma, 0.005))
+    )
+    # sides: with the travel direction known, the rear track to the right of it is rear_right
+    labels: dict[int, tuple[str, bool | None]] = {}
+    side_a = side_b = ""
+    if follows_a is not None and inside.any():
+        k = int(np.flatnonzero(inside)[inside.sum() // 2])
+        u = rear_a.tangents[k] * (1 if follows_a else -1)
+        v = foot[k] - rear_a.xy[k]
+        b_is_left = u[0] * v[1] - u[1] * v[0] > 0
+        side_a, side_b = ("_right", "_left") if b_is_left else ("_left", "_right")
+    for lp, side, rear_follows in (
+        (a, side_a, follows_a),
+        (b, side_b, None if follows_a is None else follows_a == sp.same_order),
+    ):
+        for leg_index, role in ((lp.rear_leg, "rear"), (lp.front_leg, "front")):
+            follows = None
+            if rear_follows is not None:
+                same = True if leg_index == lp.rear_leg else lp.result.same_order
+                follows = rear_follows == same
+            wheel = role + side if lp.result.rear is not None else "unassigned"
+            labels[legs[leg_index].rut] = (wheel, follows)
+    ruts = sorted(labels)
+    record = PassRecord(
+        pass_id=pass_id,
+        verdict=verdict,
+        confidence=float(max(p, 1 - p)) if verdict == "decided" else 0.5,
+        wheelbase_m=wb,
+        wheelbase_low_m=wb_low,
+        wheelbase_high_m=wb_high,
+        track_width_m=sp.median,
+        wheel_tracks=4,
+        vehicle_class=suggest_class(wb, sp.median, False),
+        gear="forward",
+        reversals=0,
+        min_turn_radius_m=radius,
+        max_steer_deg=steer,
+        residual_m=max(a.result.residual, b.result.residual),
+        length_m=float(0.5 * (rear_a.raw_length + rear_b.raw_length)),
+        rut_ids=",".join(str(k + 1) for k in ruts),
+        source_fids=",".join(ids[k] for k in ruts),
+        geometry=simple,
+    )
+    return record, labels
+
+
 def analyze_layer(layer: InputLayer, options: AnalyzeOptions = AnalyzeOptions()) -> AnalysisResult:
     """Run the whole analysis on a layer already read from a file."""
     crs = resolve_crs(layer.crs, options.crs)
@@ -222,24 +370,21 @@ def analyze_layer(layer: InputLayer, options: AnalyzeOptions = AnalyzeOptions())
     group_first: dict[int, int] = {}
     # per input rut: pass group id, wheel, verdict, and whether motion follows its vertex order
     rut_info: dict[int, tuple[int, str, str, bool | None]] = {}
-    for n, lp in enumerate(leg_passes, start=1):
-        record = _make_pass(n, lp, legs, layer.ids)
+    for n, unit in enumerate(_axle_units(leg_passes, legs), start=1):
+        if len(unit) == 1:
+            lp = leg_passes[unit[0]]
+            record = _make_pass(n, lp, legs, layer.ids)
+            labels = _leg_labels(lp, legs)
+        else:
+            lp = leg_passes[unit[0]]
+            record, labels = _make_axle_pass(
+                n, leg_passes[unit[0]], leg_passes[unit[1]], legs, layer.ids
+            )
         record.pass_group = group_first.setdefault(lp.group, n)
         passes.append(record)
-        res = lp.result
-        rear_pos = 0 if lp.pair[0] == lp.rear_leg else 1
-        for leg_index, wheel_pos in ((lp.rear_leg, rear_pos), (lp.front_leg, 1 - rear_pos)):
-            rut_k = legs[leg_index].rut
-            wheel = (
-                "unassigned" if res.rear is None else ("rear" if wheel_pos == res.rear else "front")
-            )
-            follows = None
-            if lp.motion_follows_rear is not None:
-                # leg vertex order = rut vertex order; relate the two tracks' orders
-                same = True if leg_index == lp.rear_leg else res.same_order
-                follows = lp.motion_follows_rear == same
+        for rut_k, (wheel, follows) in labels.items():
             if rut_k not in rut_info or (rut_info[rut_k][3] is None and follows is not None):
-                rut_info[rut_k] = (record.pass_group, wheel, lp.verdict, follows)
+                rut_info[rut_k] = (record.pass_group, wheel, record.verdict, follows)
     unpaired_reason: dict[int, str] = {}
     for leg_index, reason in pairing.unpaired.items():
         rut_k = legs[leg_index].rut
