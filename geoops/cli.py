@@ -48,8 +48,8 @@ def print_summary(result: object, outputs: Sequence[Path], source: str) -> None:
     )
     if result.passes:
         print(
-            f"  {'pass':>4}  {'verdict':<12} {'conf':>5}  {'travel':<6} "
-            f"{'wheelbase m (95 %)':<22} {'class':<16} {'ruts':<10} source ids"
+            f"  {'pass':>4} {'leg':>3}  {'verdict':<12} {'conf':>5}  {'travel':<6} {'gear':<7} "
+            f"{'wheelbase m (95 %)':<21} {'track m':>7}  {'class':<16} source ids"
         )
         for p in result.passes:
             travel = _heading(p.geometry) if p.verdict == "decided" else "?"
@@ -60,8 +60,8 @@ def print_summary(result: object, outputs: Sequence[Path], source: str) -> None:
             )
             conf = f"{p.confidence:.2f}" if p.verdict == "decided" else "-"
             print(
-                f"  {p.pass_id:>4}  {p.verdict:<12} {conf:>5}  {travel:<6} {wb:<22} "
-                f"{p.vehicle_class:<16} {p.rut_ids:<10} {p.source_fids}"
+                f"  {p.pass_id:>4} {p.leg:>3}  {p.verdict:<12} {conf:>5}  {travel:<6} {p.gear:<7} "
+                f"{wb:<21} {_fmt(p.track_width_m):>7}  {p.vehicle_class:<16} {p.source_fids}"
             )
     unpaired = [r for r in result.ruts if r.pass_id is None]
     if unpaired:

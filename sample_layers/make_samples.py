@@ -81,15 +81,16 @@ def analyst_layers(rng: np.random.Generator) -> dict[str, tuple[list, dict]]:
     to_bng = _local_to(BURN_LON, BURN_LAT, "EPSG:27700")
     step = 0.02
     quad = simulate_steering(ATV, random_smooth(80.0, step, rng, 22.0, 4.0), step)
-    lines = mapped_lines(quad, 0.03, (0.4, 1.0), rng, which=["rear_left", "front_left"])
-    ruts = [_rotate(lines[w], 110.0, (0.0, 0.0)) for w in ("rear_left", "front_left")]
+    wheels = ["rear_left", "front_left", "rear_right", "front_right"]
+    lines = mapped_lines(quad, 0.03, (0.4, 1.0), rng, which=wheels)
+    ruts = [_rotate(lines[w], 110.0, (0.0, 0.0)) for w in wheels]
     # a sheep path crossing the scene: a lone single line, not a vehicle rut
     t = np.linspace(0, 1, 60)
     path = np.column_stack([-30 + 70 * t, -25 + 50 * t + 1.5 * np.sin(9 * t)])
     path += rng.normal(0, 0.05, path.shape)
     ruts.append(path)
-    ids = ["HH-0931", "HH-0932", "HH-0940"]
-    kinds = ["rut", "rut", "animal path"]
+    ids = ["HH-0931", "HH-0932", "HH-0933", "HH-0934", "HH-0940"]
+    kinds = ["rut", "rut", "rut", "rut", "animal path"]
     geoms, fence = [], []
     for xy in ruts:
         x, y = to_bng.transform(xy[:, 0], xy[:, 1])
@@ -102,7 +103,7 @@ def analyst_layers(rng: np.random.Generator) -> dict[str, tuple[list, dict]]:
             {
                 "rut_ref": np.array(ids, dtype=object),
                 "kind": np.array(kinds, dtype=object),
-                "digitiser": np.array(["T. Everleigh"] * 3, dtype=object),
+                "digitiser": np.array(["T. Everleigh"] * len(ids), dtype=object),
             },
         ),
         "fence_lines": (fence, {"name": np.array(["burn fence"], dtype=object)}),
