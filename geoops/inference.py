@@ -295,6 +295,31 @@ def _interval(obj: _Objective, length: float, mse0: float, scale: float) -> tupl
     return min(low, length), max(high, length)
 
 
+def curvature_varies(track: CleanRut, z: float = 3.0) -> bool:
+    """Whether the track's curvature changes by more than its noise explains.
+
+    All direction evidence comes from changes of curvature: on a constant curvature (a circle,
+    a straight) both directions fit. Curvature is read as the heading change across one
+    smoothing window, at window spacing (nearly independent samples); its noise follows from
+    the tangent variance. True when the variance of those samples exceeds the noise variance
+    by ``z`` standard errors of a variance estimate.
+    """
+    heading = np.unwrap(np.arctan2(track.tangents[:, 1], track.tangents[:, 0]))
+    k = max(track.window_pts // 2, 1)
+    if len(heading) <= 2 * k + 2:
+        return False
+    base = 2 * k * track.step
+    kappa = (heading[2 * k :] - heading[: -2 * k]) / base
+    ok = track.has_data[k:-k]
+    samples = kappa[ok][:: 2 * k]
+    if len(samples) < 4:
+        return False
+    noise_var = 2.0 * track.tangent_var / base**2
+    excess = float(np.var(samples, ddof=1)) - noise_var
+    # standard error of a sample variance of m normal values: var * sqrt(2 / (m - 1))
+    return excess > z * noise_var * np.sqrt(2.0 / (len(samples) - 1)) + 1e-12
+
+
 def _sigmoid(x: float) -> float:
     return float(1.0 / (1.0 + np.exp(-np.clip(x, -MAX_LOG_ODDS, MAX_LOG_ODDS))))
 
@@ -422,6 +447,10 @@ def solve_pair(first: CleanRut, second: CleanRut) -> PairResult:
     open_interval = low <= WHEELBASE_MIN_M * 1.0001 or high >= WHEELBASE_MAX_M * 0.9999
     identifiable = not at_bound and not open_interval and (high - low) <= 0.5 * best.wheelbase
     p_dir = max(p_first, 1.0 - p_first)
+    if p_dir >= DECIDE_AT and not curvature_varies(rear_track):
+        # constant curvature (a circle or a straight): both directions fit, whatever small
+        # systematic survey error makes one look better (Finn 2004; Tabachnikov 2004)
+        p_dir = 0.5
     rear_known = max(p_rear_first, 1 - p_rear_first) >= DECIDE_AT
     if identifiable:
         base = replace(base, wheelbase=best.wheelbase, wheelbase_low=low, wheelbase_high=high)

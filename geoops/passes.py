@@ -144,17 +144,24 @@ def _assemble_group(
         log_odds += lo
     lengths = [r.wheelbase for *_, r in items if r.wheelbase is not None]
     wb = float(np.median(lengths)) if lengths else None
-    front_ruts = {legs[f].rut for _, _, f, _ in items}
-    rear_leg0 = legs[items[0][1]]
-    front_corners = [r for f in front_ruts for r in _rut_reversals(legs, f)]
-    for k, cusp in enumerate(sorted(rear_leg0.reversals, key=lambda r: r.s)):
+    # the front rut of the first leg pair, its reversals in the rear rut's travel order
+    _, first_rear, first_front, first_res = items[0]
+    rear_leg0 = legs[first_rear]
+    corners = sorted(_rut_reversals(legs, legs[first_front].rut), key=lambda r: r.s)
+    if not first_res.same_order:
+        corners = corners[::-1]
+    rear_revs = sorted(rear_leg0.reversals, key=lambda r: r.s)
+    sigma_pair = float(np.hypot(rear_leg0.track.sigma, legs[first_front].track.sigma))
+    for k, cusp in enumerate(rear_revs):
         if not cusp.is_cusp:
             continue
         lo_l, hi_l = (0.6 * wb, 1.6 * wb) if wb else (WHEELBASE_MIN_M, WHEELBASE_MAX_M)
-        ev = judge_cusp(cusp, front_corners, lo_l, hi_l)
+        # the k-th reversal of the rear track happened with the k-th of the front track;
+        # when the counts differ, any corner in range may be the one
+        candidates = [corners[k]] if len(corners) == len(rear_revs) else corners
+        ev = judge_cusp(cusp, candidates, lo_l, hi_l)
         # a cusp is evidence only where the tracks are sharp enough to place it: three sigma
         # of the pair within 15 % of the wheelbase (else noise makes and moves cusps)
-        sigma_pair = float(np.hypot(rear_leg0.track.sigma, legs[items[0][2]].track.sigma))
         if ev is None or 3.0 * sigma_pair > 0.15 * ev.wheelbase:
             continue
         # the cusp ends leg k of the rear rut (vertex order): its heading follows that order
