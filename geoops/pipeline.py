@@ -23,6 +23,7 @@ import shapely
 from . import __version__
 from .axles import same_vehicle, spacing
 from .clean import CleanRut, clean_rut
+from .crosscheck import steady_turn_wheelbase
 from .curves import Array, as_linestrings
 from .errors import BadInput, CrsError
 from .frame import LocalFrame, build_frame, resolve_crs
@@ -66,6 +67,7 @@ PASS_FIELDS = {
     "source_fids": "text",
     "leg": "int",
     "pass_group": "int",
+    "wheelbase_turn_m": "real",
 }
 RUT_FIELDS = {
     "rut_id": "int",
@@ -119,6 +121,7 @@ class PassRecord:
     geometry: Array = field(repr=False)  # local frame, vertex order = travel when decided
     leg: int = 1  # position along the manoeuvre, 1-based (legs are split at reversals)
     pass_group: int = 0  # pass_id of the first leg of the same manoeuvre
+    wheelbase_turn_m: float | None = None  # independent estimate from steady turns
 
 
 @dataclass
@@ -197,7 +200,13 @@ def _make_pass(pass_id: int, lp: LegPass, legs: list[Leg], ids: list[str]) -> Pa
         source_fids=",".join(ids[k] for k in ruts),
         geometry=simple,
         leg=lp.order + 1,
+        wheelbase_turn_m=steady_turn_wheelbase(rear, legs[lp.front_leg].track, res.wheelbase),
     )
+
+
+def _estimates_disagree(record: PassRecord) -> bool:
+    a, b = record.wheelbase_turn_m, record.wheelbase_m
+    return a is not None and b is not None and abs(a - b) > 0.25 * b
 
 
 def _leg_labels(lp: LegPass, legs: list[Leg]) -> dict[int, tuple[str, bool | None]]:
@@ -342,6 +351,7 @@ def _make_axle_pass(
         rut_ids=",".join(str(k + 1) for k in ruts),
         source_fids=",".join(ids[k] for k in ruts),
         geometry=simple,
+        wheelbase_turn_m=steady_turn_wheelbase(rear_a, legs[a.front_leg].track, wb),
     )
     return record, labels
 
@@ -382,6 +392,12 @@ def analyze_layer(layer: InputLayer, options: AnalyzeOptions = AnalyzeOptions())
             )
         record.pass_group = group_first.setdefault(lp.group, n)
         passes.append(record)
+        if _estimates_disagree(record):
+            warnings.append(
+                f"Pass {n}: the steady-turn wheelbase ({record.wheelbase_turn_m:.2f} m) and the "
+                f"fitted one ({record.wheelbase_m:.2f} m) differ by more than 25 %; check "
+                "the ruts' pairing and noise."
+            )
         for rut_k, (wheel, follows) in labels.items():
             if rut_k not in rut_info or (rut_info[rut_k][3] is None and follows is not None):
                 rut_info[rut_k] = (record.pass_group, wheel, record.verdict, follows)

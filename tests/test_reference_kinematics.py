@@ -204,3 +204,22 @@ def test_front_path_solver_keeps_rear_velocity_along_the_bar() -> None:
     tangent = _central_tangent(run.rear)
     # source: Finn, Mathematics Magazine, 2004 (front = rear + L * unit tangent of the rear)
     assert np.allclose(run.front[1:-1], run.rear[1:-1] + length * tangent, atol=1e-4)
+
+
+def test_steady_turn_wheelbase_estimator_on_mapped_circles():
+    """The second wheelbase estimator reads R_front^2 = R_rear^2 + L^2 off mapped tracks."""
+    import numpy as np
+
+    from geoops.clean import clean_rut
+    from geoops.crosscheck import steady_turn_wheelbase
+    from geoops.kinematics import simulate_steering
+    from geoops.scenarios import BICYCLE, circle, mapped_lines
+
+    for seed in range(3):
+        sim = simulate_steering(BICYCLE, circle(40.0, 0.02, 30.0), 0.02)
+        lines = mapped_lines(sim, 0.005, (0.2, 0.4), np.random.default_rng(seed))
+        est = steady_turn_wheelbase(clean_rut([lines["rear"]]), clean_rut([lines["front"]]))
+        # source: kinematic bicycle model steady turn R_front^2 = R_rear^2 + L^2 (Lynch & Park,
+        # Modern Robotics, 2017; references.md)
+        assert est is not None
+        assert abs(est / BICYCLE.wheelbase - 1) < 0.05
