@@ -18,6 +18,7 @@ import numpy as np
 
 from . import __version__
 from .errors import RutwiseError
+from .raster_cli import add_extract_parser
 
 EXIT_USER_ERROR = 2
 EXIT_BUG = 1
@@ -81,7 +82,7 @@ def print_summary(result: object, outputs: Sequence[Path], source: str) -> None:
 
 
 def _cmd_analyze(args: argparse.Namespace) -> int:
-    from .pipeline import AnalyzeOptions, analyze_file, write_result
+    from .pipeline import AnalyzeOptions, analyze_file, analyze_layer, write_result
 
     options = AnalyzeOptions(
         layer=args.layer,
@@ -106,7 +107,16 @@ def _cmd_analyze(args: argparse.Namespace) -> int:
             f"The output {str(output)!r} would overwrite the input.",
             "Name another output file with -o.",
         )
-    result = analyze_file(args.input, options)
+    from .raster_defaults import VECTOR_SUFFIXES
+
+    # rasterio and scikit-image take a second to import: only for what may be a raster
+    if Path(args.input).suffix.lower() not in VECTOR_SUFFIXES and _is_raster(args.input):
+        from .raster import extract_ruts
+
+        # a drone elevation model or rut mask: extract the rut lines first
+        result = analyze_layer(extract_ruts(args.input).as_input_layer(), options)
+    else:
+        result = analyze_file(args.input, options)
     try:
         outputs = write_result(result, output, out_crs=args.out_crs)
     except OSError as exc:
@@ -117,6 +127,12 @@ def _cmd_analyze(args: argparse.Namespace) -> int:
     if not args.quiet:
         print_summary(result, outputs, args.input)
     return 0
+
+
+def _is_raster(path: str) -> bool:
+    from .raster import is_raster
+
+    return is_raster(path)
 
 
 def _cmd_serve(args: argparse.Namespace) -> int:
@@ -178,6 +194,8 @@ def build_parser() -> argparse.ArgumentParser:
     )
     a.add_argument("-q", "--quiet", action="store_true", help="print nothing on success")
     a.set_defaults(func=_cmd_analyze)
+
+    add_extract_parser(sub)
 
     s = sub.add_parser("serve", help="start the HTTP processing service (OGC API - Processes)")
     s.add_argument("--host", default=None, help="address to listen on (default 127.0.0.1)")
