@@ -342,8 +342,9 @@ def main() -> None:
         "",
         *turn_rows,
         "",
-        "Not yet covered (issue 4): merged front/rear stretches, four-wheel evidence combined "
-        "across sides, fragments spread over separate features.",
+        "Not yet covered here: merged front/rear stretches, and fragments spread over separate "
+        "features. Four ruts of one vehicle (both sides combined) are checked in "
+        "tests/test_axles.py, not in this table.",
     ]
     text = "\n".join(lines) + "\n"
     print(text)
