@@ -17,7 +17,7 @@ from pathlib import Path
 import numpy as np
 
 from . import __version__
-from .errors import RutwiseError
+from .errors import RutwiseError, writing_to
 from .raster_cli import add_extract_parser
 
 EXIT_USER_ERROR = 2
@@ -117,13 +117,8 @@ def _cmd_analyze(args: argparse.Namespace) -> int:
         result = analyze_layer(extract_ruts(args.input).as_input_layer(), options)
     else:
         result = analyze_file(args.input, options)
-    try:
+    with writing_to(output):
         outputs = write_result(result, output, out_crs=args.out_crs)
-    except OSError as exc:
-        raise RutwiseError(
-            f"Cannot write {str(output)!r} ({exc.strerror or type(exc).__name__}).",
-            "Name an output file in a folder you can write to with -o.",
-        ) from None
     if not args.quiet:
         print_summary(result, outputs, args.input)
     return 0

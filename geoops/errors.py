@@ -7,6 +7,10 @@ never show a traceback for them. This module must not import anything heavy.
 
 from __future__ import annotations
 
+from collections.abc import Iterator
+from contextlib import contextmanager
+from pathlib import Path
+
 
 class RutwiseError(Exception):
     """Base class of all errors that a user's input or request can cause.
@@ -53,3 +57,25 @@ class NotEstimable(RutwiseError):
     """A quantity cannot be estimated from the geometry given (e.g. too straight, too short)."""
 
     kind = "not-estimable"
+
+
+@contextmanager
+def writing_to(path: str | Path) -> Iterator[None]:
+    """Turn an operating-system error while writing ``path`` into a user error with a hint.
+
+    Examples
+    --------
+    >>> try:
+    ...     with writing_to("/no/such/folder/out.gpkg"):
+    ...         open("/no/such/folder/out.gpkg", "w")
+    ... except RutwiseError as exc:
+    ...     print(exc.hint)
+    Name an output file in a folder you can write to with -o.
+    """
+    try:
+        yield
+    except OSError as exc:
+        raise RutwiseError(
+            f"Cannot write {str(path)!r} ({exc.strerror or type(exc).__name__}).",
+            "Name an output file in a folder you can write to with -o.",
+        ) from None

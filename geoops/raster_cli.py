@@ -10,7 +10,7 @@ import argparse
 import os
 from pathlib import Path
 
-from .errors import RutwiseError
+from .errors import RutwiseError, writing_to
 from .raster_defaults import (
     DEM_THRESHOLD_M,
     DEPTH_LIMITS_M,
@@ -52,13 +52,8 @@ def _cmd_extract(args: argparse.Namespace) -> int:
         depth_limits_m=tuple(args.depth_limits),
         through_junctions=not args.split_at_junctions,
     )
-    try:
+    with writing_to(output):
         written = write_rut_lines(lines, output)
-    except OSError as exc:
-        raise RutwiseError(
-            f"Cannot write {str(output)!r} ({exc.strerror or type(exc).__name__}).",
-            "Name an output file in a folder you can write to with -o.",
-        ) from None
     if not args.quiet:
         total = float(lines.length_m.sum())
         print(f"{args.raster}: read as {'an elevation model' if lines.kind == 'dem' else 'a mask'}")
