@@ -252,12 +252,18 @@ class NearestOnPolyline:
         self.xy = np.ascontiguousarray(self.xy, dtype=np.float64)
         self._tree = cKDTree(self.xy)
         self._s = arc_length(self.xy)
+        self._ax, self._ay = self.xy[:-1, 0].copy(), self.xy[:-1, 1].copy()
+        self._abx = np.diff(self.xy[:, 0])
+        self._aby = np.diff(self.xy[:, 1])
+        den = self._abx**2 + self._aby**2
+        self._seg_len = np.sqrt(den)
+        self._inv_den = np.where(den > 0, 1.0 / np.where(den > 0, den, 1.0), 0.0)
 
     @property
     def length(self) -> float:
         return float(self._s[-1])
 
-    def query(self, pts: Array, k: int = 2) -> tuple[Array, Array, Array]:
+    def query(self, pts: Array, k: int = 1) -> tuple[Array, Array, Array]:
         """Distance to the line, arc-length position of the nearest point, and side.
 
         Returns
@@ -268,34 +274,41 @@ class NearestOnPolyline:
         dist, s, side, _ = self.nearest(pts, k)
         return dist, s, side
 
-    def nearest(self, pts: Array, k: int = 2) -> tuple[Array, Array, Array, Array]:
-        """Like :meth:`query`, plus the nearest points themselves, ``(m, 2)``."""
+    def nearest(self, pts: Array, k: int = 1) -> tuple[Array, Array, Array, Array]:
+        """Like :meth:`query`, plus the nearest points themselves, ``(m, 2)``.
+
+        The ``k`` nearest vertices are found with the k-d tree; the segments on either side of
+        each are projected onto, component-wise (no 3-D temporaries: this is the hot path).
+        """
         n = len(self.xy)
+        m = len(pts)
         if n < 2:
             d = np.hypot(*(pts - self.xy[0]).T)
             foot0 = np.broadcast_to(self.xy[0], pts.shape).copy()
-            return d, np.zeros(len(pts)), np.ones(len(pts)), foot0
-        k = min(k, n)
-        _, idx = self._tree.query(pts, k=k)
-        idx = np.asarray(idx).reshape(len(pts), k)
-        # candidate segments: (i-1, i) and (i, i+1) for each nearest vertex i
-        seg = np.concatenate([idx - 1, idx], axis=1)
-        seg = np.clip(seg, 0, n - 2)
-        a = self.xy[seg]  # (m, c, 2)
-        b = self.xy[seg + 1]
-        ab = b - a
-        ap = pts[:, None, :] - a
-        den = np.einsum("mcj,mcj->mc", ab, ab)
-        den[den == 0] = 1.0
-        t = np.clip(np.einsum("mcj,mcj->mc", ap, ab) / den, 0.0, 1.0)
-        foot = a + t[..., None] * ab
-        dd = np.hypot(*(pts[:, None, :] - foot).transpose(2, 0, 1))
-        j = np.argmin(dd, axis=1)
-        rows = np.arange(len(pts))
-        dist = dd[rows, j]
-        sj = seg[rows, j]
-        seg_len = np.sqrt(den[rows, j])
-        s = self._s[sj] + t[rows, j] * seg_len
-        cross = ab[rows, j, 0] * ap[rows, j, 1] - ab[rows, j, 1] * ap[rows, j, 0]
+            return d, np.zeros(m), np.ones(m), foot0
+        _, idx = self._tree.query(pts, k=min(k, n))
+        idx = np.asarray(idx).reshape(m, -1)
+        px, py = pts[:, 0], pts[:, 1]
+        best_d2 = np.full(m, np.inf)
+        best_seg = np.zeros(m, dtype=np.int64)
+        best_t = np.zeros(m)
+        for col in range(idx.shape[1]):
+            for shift in (-1, 0):
+                seg = np.clip(idx[:, col] + shift, 0, n - 2)
+                ax, ay = self._ax[seg], self._ay[seg]
+                abx, aby = self._abx[seg], self._aby[seg]
+                t = np.clip(((px - ax) * abx + (py - ay) * aby) * self._inv_den[seg], 0.0, 1.0)
+                dx = px - (ax + t * abx)
+                dy = py - (ay + t * aby)
+                d2 = dx * dx + dy * dy
+                better = d2 < best_d2
+                best_d2 = np.where(better, d2, best_d2)
+                best_seg = np.where(better, seg, best_seg)
+                best_t = np.where(better, t, best_t)
+        abx, aby = self._abx[best_seg], self._aby[best_seg]
+        ax, ay = self._ax[best_seg], self._ay[best_seg]
+        foot = np.column_stack([ax + best_t * abx, ay + best_t * aby])
+        s = self._s[best_seg] + best_t * self._seg_len[best_seg]
+        cross = abx * (py - ay) - aby * (px - ax)
         side = np.where(cross >= 0, 1.0, -1.0)
-        return dist, s, side, foot[rows, j]
+        return np.sqrt(best_d2), s, side, foot

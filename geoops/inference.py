@@ -33,6 +33,8 @@ RESIDUAL_FLOOR_M = 0.005
 #: largest lateral shift between same-side front and rear tracks, metres: half the largest
 #: front/rear track difference of a tractor (1.5-2.3 m adjustable track)  # common practice
 SHIFT_MAX_M = 0.5
+#: a shift is tried only when the unshifted misfit exceeds this many sigma of the pair
+SHIFT_TRY_AT = 1.5
 #: temperature of the direction odds: the likelihood ratio is divided by it before it becomes
 #: a probability (temperature scaling; Guo et al., "On Calibration of Modern Neural Networks",
 #: ICML 2017). bench/accuracy.py's reliability table is the check: with the effective sample
@@ -368,8 +370,8 @@ def solve_pair(first: CleanRut, second: CleanRut) -> PairResult:
     objs: dict[tuple[int, int], tuple[_Objective, _Objective]] = {}
     for rear_i in (0, 1):
         rear, target = tracks[rear_i], tracks[1 - rear_i]
-        coarse_idx = _subsample(overlaps[rear_i], 400)
-        fine_idx = _subsample(overlaps[rear_i], 3000)
+        coarse_idx = _subsample(overlaps[rear_i], 250)
+        fine_idx = _subsample(overlaps[rear_i], 1500)
         for along in (1, -1):
             coarse = _Objective(rear, target, along, coarse_idx, cap)
             fine = _Objective(rear, target, along, fine_idx, cap)
@@ -392,9 +394,11 @@ def solve_pair(first: CleanRut, second: CleanRut) -> PairResult:
     # the hypotheses are ranked without a lateral shift (a shift lets a wrong hypothesis mimic
     # the right one on circles); the winner may then take one for its wheelbase and residual
     window = max(rear_track.window_m, target_track.window_m)
-    length, mse, n_used, shift = _fit_with_shift(
-        best_coarse, best_obj, (best.wheelbase, best.mse, best.n_used), window, spacing
-    )
+    shift = 0.0
+    if np.sqrt(max(best.mse, 0.0)) > SHIFT_TRY_AT * sigma_pair:
+        length, mse, n_used, shift = _fit_with_shift(
+            best_coarse, best_obj, (best.wheelbase, best.mse, best.n_used), window, spacing
+        )
     if shift != 0.0:
         best = replace(best, wheelbase=length, mse=mse, n_used=n_used, shift=shift)
     residual = float(np.sqrt(best.raw_mse))
