@@ -28,7 +28,7 @@ run: $(STAMP)
 test: $(STAMP)
 	$(BIN)/ruff check .
 	$(BIN)/mypy
-	$(BIN)/python -m pytest -q -n 2
+	$(BIN)/python -m pytest -q -n 2 --dist loadgroup
 
 ## make serve: start the HTTP processing service on http://127.0.0.1:8000
 serve: $(STAMP)

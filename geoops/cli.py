@@ -17,6 +17,7 @@ from pathlib import Path
 import numpy as np
 
 from . import __version__
+from .batch_cli import add_batch_parser
 from .errors import RutwiseError, writing_to
 from .raster_cli import add_extract_parser
 
@@ -191,6 +192,7 @@ def build_parser() -> argparse.ArgumentParser:
     a.set_defaults(func=_cmd_analyze)
 
     add_extract_parser(sub)
+    add_batch_parser(sub)
 
     s = sub.add_parser("serve", help="start the HTTP processing service (OGC API - Processes)")
     s.add_argument("--host", default=None, help="address to listen on (default 127.0.0.1)")
