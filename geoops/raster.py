@@ -288,6 +288,23 @@ def is_raster(path: str | os.PathLike[str]) -> bool:
         return False
 
 
+def check_raster(path: str | os.PathLike[str]) -> str:
+    """The CRS (e.g. ``'EPSG:32633'``) of a raster that rut extraction can read.
+
+    Opens the raster and runs the same checks as :func:`extract_ruts` (one band, a
+    geotransform, a CRS, not all nodata) without extracting anything; for validating uploads.
+
+    Raises
+    ------
+    BadInput, CrsError
+        What is wrong with the raster and what to do.
+    """
+    with _open(str(path)) as ds:
+        grid = _grid(ds, str(path))
+        _decide_kind(ds, "auto")
+    return str(grid.crs.to_string())
+
+
 def _open(path: str) -> Any:
     if not Path(path).exists():
         raise BadInput(f"No file at {path!r}.", "Check the path and try again.")

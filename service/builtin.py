@@ -1,5 +1,6 @@
-"""The processes rutwise ships: ``analyze`` (the main job), ``simulate`` (planning: wheel
-tracks a vehicle would leave) and ``echo`` (the standard's test process).
+"""The processes rutwise ships: ``analyze`` (the main job), ``extract-ruts`` (rut lines from a
+drone elevation model or rut mask), ``simulate`` (planning: wheel tracks a vehicle would leave)
+and ``echo`` (the standard's test process).
 
 Their ``run`` functions execute in worker processes and write result files atomically into
 the job folder; their ``check`` functions run in the service before a job is made.
@@ -18,11 +19,13 @@ from urllib.parse import urlsplit
 
 import numpy as np
 import pyproj
+import shapely
 
 from geoops.errors import LimitExceeded, RutwiseError
-from geoops.io import geojson_document, read_layer
+from geoops.io import InputLayer, OutputLayer, geojson_document, read_layer
 from geoops.kinematics import Vehicle, simulate_steering
 from geoops.pipeline import CAUTION, AnalyzeOptions, analyze_layer, result_layers, write_result
+from geoops.raster_defaults import DEPTH_LIMITS_M, MIN_LENGTH_M
 from geoops.scenarios import PRESETS, circle, mapped_lines, s_curve, slalom, straight
 
 from .jobs import is_id, write_atomic, write_json
@@ -30,7 +33,9 @@ from .processes import (
     FEATURE_COLLECTION_SCHEMA,
     GEOJSON,
     GEOPACKAGE,
+    GEOTIFF,
     JSON,
+    RASTER_SUFFIXES,
     TEXT,
     CheckContext,
     InputProblem,
@@ -96,25 +101,66 @@ def upload_id_of(href: str) -> str | None:
     return None
 
 
-#: suffix of an inline (base64) layer file by media type
+#: suffix of an inline (base64) layer or raster file by media type (without parameters)
 INLINE_FILE_TYPES = {GEOPACKAGE: ".gpkg", "application/flatgeobuf": ".fgb",
-                     "application/gpx+xml": ".gpx", GEOJSON: ".geojson"}
+                     "application/gpx+xml": ".gpx", GEOJSON: ".geojson", "image/tiff": ".tif"}
 
 
-def _check_inline_file(ruts: dict[str, Any]) -> dict[str, Any]:
-    """A layer file sent inline as base64 (the standard's qualified binary value)."""
-    media = ruts.get("mediaType")
-    if media not in INLINE_FILE_TYPES:
-        raise InputProblem("ruts", f"a base64 'ruts' value needs a mediaType, one of "
-                                   f"{', '.join(INLINE_FILE_TYPES)}; got {media!r}.")
+def _bare_media(media: Any) -> Any:
+    """A media type without its parameters ('image/tiff; application=geotiff' -> 'image/tiff').
+
+    >>> _bare_media("image/tiff; application=geotiff")
+    'image/tiff'
+    """
+    return media.split(";")[0].strip().lower() if isinstance(media, str) else media
+
+
+def _check_inline_file(value: dict[str, Any], input_id: str = "ruts",
+                       types: dict[str, str] = INLINE_FILE_TYPES) -> dict[str, Any]:
+    """A file sent inline as base64 (the standard's qualified binary value)."""
+    media = _bare_media(value.get("mediaType"))
+    if media not in types:
+        raise InputProblem(input_id, f"a base64 {input_id!r} value needs a mediaType, one of "
+                                     f"{', '.join(types)}; got {value.get('mediaType')!r}.")
     try:
-        data = base64.b64decode(ruts["value"], validate=True)
+        data = base64.b64decode(value["value"], validate=True)
     except (binascii.Error, ValueError):
-        raise InputProblem("ruts", "the base64 'ruts' value is not valid base64; encode the "
-                                   "file with standard base64 (RFC 4648).") from None
+        raise InputProblem(input_id, f"the base64 {input_id!r} value is not valid base64; "
+                                     "encode the file with standard base64 (RFC 4648).") from None
     if not data:
-        raise InputProblem("ruts", "the base64 'ruts' value is empty.")
-    return {"base64": ruts["value"], "suffix": INLINE_FILE_TYPES[media]}
+        raise InputProblem(input_id, f"the base64 {input_id!r} value is empty.")
+    return {"base64": value["value"], "suffix": types[media]}
+
+
+def _check_upload_ref(input_id: str, href: Any, ctx: CheckContext) -> dict[str, Any]:
+    """``{"upload": id, "file": name}`` for an href naming one of the caller's uploads."""
+    upload_id = upload_id_of(href) if isinstance(href, str) else None
+    if upload_id is None:
+        raise InputProblem(input_id, f"{input_id!r} by reference must name a file uploaded to "
+                                     "this service ({'href': '/uploads/<id>'}); other URLs are "
+                                     "not fetched. POST the file to /uploads first.")
+    path = ctx.find_upload(upload_id)
+    if path is None:
+        raise InputProblem(input_id, f"there is no upload {upload_id!r} for this caller. "
+                                     "POST the file to /uploads and use the href it returns.")
+    return {"upload": upload_id, "file": path.name}
+
+
+def _input_file(ref: dict[str, Any], ctx: RunContext, name: str = "input") -> Path:
+    """The file a checked file input names: an upload, or an inline value written to the job
+    folder."""
+    if "upload" in ref:
+        return ctx.data_dir / "uploads" / ref["upload"] / Path(ref["file"]).name
+    path = ctx.work_dir / (name + ref["suffix"])
+    write_atomic(path, base64.b64decode(ref["base64"]))
+    return path
+
+
+def check_raster(path: Path) -> str:
+    """The CRS of an uploaded raster that rut extraction can read (geoops.raster's checks)."""
+    from geoops.raster import check_raster as engine_check
+
+    return engine_check(path)
 
 
 def _check_analyze(values: dict[str, Any], ctx: CheckContext) -> dict[str, Any]:
@@ -122,17 +168,7 @@ def _check_analyze(values: dict[str, Any], ctx: CheckContext) -> dict[str, Any]:
     if isinstance(ruts, list) and len(ruts) == 1:
         ruts = ruts[0]
     if isinstance(ruts, dict) and "href" in ruts:
-        href = ruts["href"]
-        upload_id = upload_id_of(href) if isinstance(href, str) else None
-        if upload_id is None:
-            raise InputProblem("ruts", "'ruts' by reference must name a file uploaded to this "
-                                       "service ({'href': '/uploads/<id>'}); other URLs are not "
-                                       "fetched. POST the file to /uploads first.")
-        path = ctx.find_upload(upload_id)
-        if path is None:
-            raise InputProblem("ruts", f"there is no upload {upload_id!r} for this caller. "
-                                       "POST the file to /uploads and use the href it returns.")
-        values["ruts"] = {"upload": upload_id, "file": path.name}
+        values["ruts"] = _check_upload_ref("ruts", ruts["href"], ctx)
     elif (isinstance(ruts, dict) and isinstance(ruts.get("value"), str)
           and ruts.get("encoding") == "base64"):
         values["ruts"] = _check_inline_file(ruts)
@@ -170,6 +206,7 @@ def _check_analyze(values: dict[str, Any], ctx: CheckContext) -> dict[str, Any]:
 #: the CLI's option names in engine hints, and what a service caller sets instead
 _OPTION_WORDS = (
     ("--accuracy-field", "an accuracy attribute"), ("--out-crs", "the 'out_crs' input"),
+    ("--dem", "the 'dem' input"), ("--kind", "the 'kind' input"),
     ("--id-field", "the 'id_field' input"), ("--accuracy", "the 'accuracy' input"),
     ("--layer", "the 'layer' input"), ("--crs", "the 'crs' input"),
 )
@@ -192,19 +229,26 @@ def _run_analyze(inputs: dict[str, Any], ctx: RunContext) -> Manifest:
 def _analyze(inputs: dict[str, Any], ctx: RunContext) -> Manifest:
     ctx.progress(5, "reading the layer")
     ruts = inputs["ruts"]
-    if "upload" in ruts:
-        path = ctx.data_dir / "uploads" / ruts["upload"] / Path(ruts["file"]).name
-    elif "base64" in ruts:
-        path = ctx.work_dir / ("input" + ruts["suffix"])
-        write_atomic(path, base64.b64decode(ruts["base64"]))
-    else:
+    if "value" in ruts:
         path = ctx.work_dir / "input.geojson"
         write_json(path, ruts["value"])
+    else:
+        path = _input_file(ruts, ctx)
     options = AnalyzeOptions(layer=inputs.get("layer"), crs=inputs.get("crs"),
                              out_crs=inputs.get("out_crs"), accuracy=inputs.get("accuracy"),
                              id_field=inputs.get("id_field"))
-    layer = read_layer(path, layer=options.layer, id_field=options.id_field,
-                       max_features=ctx.max_features)
+    layer: InputLayer
+    if path.suffix.lower() in RASTER_SUFFIXES:
+        from geoops.raster import extract_ruts
+
+        ctx.progress(5, "extracting rut lines from the raster")
+        layer = extract_ruts(path).as_input_layer()
+        if len(layer) > ctx.max_features:
+            raise LimitExceeded(f"The raster gave {len(layer)} rut lines; the limit is "
+                                f"{ctx.max_features}.", "Cut the raster into smaller parts.")
+    else:
+        layer = read_layer(path, layer=options.layer, id_field=options.id_field,
+                           max_features=ctx.max_features)
     vertices = sum(len(p) for parts in layer.parts for p in parts)
     if vertices > ctx.max_vertices:
         raise LimitExceeded(f"The layer has {vertices} vertices; the limit is "
@@ -223,6 +267,13 @@ def _analyze(inputs: dict[str, Any], ctx: RunContext) -> Manifest:
         for formats in manifest.values():
             formats[GEOPACKAGE] = "result.gpkg"
     return manifest
+
+
+def _num(description: str, default: float, lo: float, hi: float, exclusive: bool = False
+         ) -> dict[str, Any]:
+    bound = {"exclusiveMinimum": lo} if exclusive else {"minimum": lo}
+    return {"type": "number", "description": description, "default": default, **bound,
+            "maximum": hi}
 
 
 def _text(description: str, **extra: Any) -> dict[str, Any]:
@@ -248,7 +299,9 @@ ANALYZE = Process(
             "Rut lines",
             "The mapped ruts: a GeoJSON FeatureCollection of LineStrings (bare or as "
             "{\"value\": ...}), or {\"href\": \"/uploads/<id>\"} naming a GeoPackage, GeoJSON, "
-            "GPX or FlatGeobuf file uploaded to this service.",
+            "GPX or FlatGeobuf file uploaded to this service, or a GeoTIFF elevation model or "
+            "rut mask, whose rut lines are extracted first (as extract-ruts does with its "
+            "defaults).",
             {"oneOf": [
                 FEATURE_COLLECTION_SCHEMA,
                 {"type": "string", "contentEncoding": "binary", "contentMediaType": GEOPACKAGE},
@@ -256,6 +309,7 @@ ANALYZE = Process(
                  "contentMediaType": "application/gpx+xml"},
                 {"type": "string", "contentEncoding": "binary",
                  "contentMediaType": "application/flatgeobuf"},
+                {"type": "string", "contentEncoding": "binary", "contentMediaType": GEOTIFF},
             ]},
         ),
         "id_field": InputSpec("Id attribute", "Attribute whose values identify features in "
@@ -283,6 +337,141 @@ ANALYZE = Process(
     },
     run=_run_analyze,
     check=_check_analyze,
+)
+
+# --- extract-ruts ----------------------------------------------------------------------------
+
+_RASTER_TYPES = {"image/tiff": ".tif"}
+
+
+def _check_raster_input(input_id: str, value: Any, ctx: CheckContext) -> dict[str, Any]:
+    """An uploaded GeoTIFF by reference, or a base64 GeoTIFF by value."""
+    if isinstance(value, list) and len(value) == 1:
+        value = value[0]
+    if isinstance(value, dict) and "href" in value:
+        ref = _check_upload_ref(input_id, value["href"], ctx)
+        if Path(ref["file"]).suffix.lower() not in RASTER_SUFFIXES:
+            raise InputProblem(input_id, f"{input_id!r} names an uploaded vector layer; upload "
+                                         "the GeoTIFF (Content-Type: image/tiff) and use its "
+                                         "href.")
+        return ref
+    if (isinstance(value, dict) and isinstance(value.get("value"), str)
+            and value.get("encoding", "base64") == "base64"):
+        return _check_inline_file(value, input_id, _RASTER_TYPES)
+    raise InputProblem(input_id, f"{input_id!r} must be {{'href': '/uploads/<id>'}} naming an "
+                                 "uploaded GeoTIFF, or {'value': '<base64>', 'encoding': "
+                                 f"'base64', 'mediaType': '{GEOTIFF}'}}.")
+
+
+def _check_extract(values: dict[str, Any], ctx: CheckContext) -> dict[str, Any]:
+    from geoops.raster import ExtractOptions
+
+    values["raster"] = _check_raster_input("raster", values["raster"], ctx)
+    if values.get("dem") is not None:
+        values["dem"] = _check_raster_input("dem", values["dem"], ctx)
+    # fail early on options the engine would reject later
+    ExtractOptions(kind=values["kind"], threshold=values.get("threshold"),
+                   min_length_m=float(values["min_length"]))
+    return values
+
+
+def _rut_lines_document(lines: Any) -> dict[str, Any]:
+    """The rut lines as a GeoJSON document in lon/lat with the run metadata and the caution."""
+    from geoops.raster import LAYER_NAME, LINE_FIELDS
+
+    to_lonlat = pyproj.Transformer.from_crs(lines.crs, WGS84, always_xy=True)
+    geoms = shapely.transform(lines.lines, lambda xy: np.column_stack(
+        to_lonlat.transform(xy[:, 0], xy[:, 1])))
+    fields = {"line_id": list(range(1, len(lines) + 1)), "length_m": lines.length_m.tolist(),
+              "width_m": lines.width_m.tolist(),
+              "depth_median_m": lines.depth_median_m.tolist(),
+              "depth_max_m": lines.depth_max_m.tolist(),
+              "depth_class": lines.depth_class.tolist()}
+    layer = OutputLayer(LAYER_NAME, geoms, fields, LINE_FIELDS,
+                        "rutwise rut centrelines extracted from a raster. " + CAUTION)
+    meta = {"tool": "rutwise", "version": version(), "raster_kind": lines.kind,
+            "pixel_size_m": json.dumps([round(v, 6) for v in lines.pixel_size_m]),
+            "options": json.dumps(dict(lines.options)),
+            "depth_classes": json.dumps({
+                "limits_m": list(lines.options.get("depth_limits_m", DEPTH_LIMITS_M)),
+                "measure": "median depth below the local ground along the line"}),
+            "lines_found": str(len(lines)), "warnings": json.dumps(list(lines.warnings)),
+            "input_crs": pyproj.CRS.from_user_input(lines.crs).to_string(),
+            "output_crs": "EPSG:4326", "caution": CAUTION}
+    return geojson_document(layer, meta)
+
+
+def _run_extract(inputs: dict[str, Any], ctx: RunContext) -> Manifest:
+    try:
+        return _extract(inputs, ctx)
+    except RutwiseError as exc:
+        raise _in_service_words(exc) from None
+
+
+def _extract(inputs: dict[str, Any], ctx: RunContext) -> Manifest:
+    from geoops.raster import extract_ruts, write_rut_lines
+
+    ctx.progress(5, "reading the raster")
+    raster = _input_file(inputs["raster"], ctx, "raster")
+    dem = _input_file(inputs["dem"], ctx, "dem") if inputs.get("dem") else None
+    ctx.progress(10, "extracting rut lines")
+    lines = extract_ruts(raster, dem_path=dem, kind=inputs["kind"],
+                         threshold=inputs.get("threshold"),
+                         min_length_m=float(inputs["min_length"]))
+    ctx.progress(80, "writing the results")
+    write_json(ctx.work_dir / "rut_lines.geojson", _rut_lines_document(lines))
+    manifest: Manifest = {"rut_lines": {GEOJSON: "rut_lines.geojson"}}
+    if GEOPACKAGE in ctx.wanted or not ctx.wanted:
+        write_rut_lines(lines, ctx.work_dir / "rut_lines.gpkg")
+        manifest["rut_lines"][GEOPACKAGE] = "rut_lines.gpkg"
+    return manifest
+
+
+_RASTER_SCHEMA = {"oneOf": [
+    {"type": "string", "contentEncoding": "binary", "contentMediaType": GEOTIFF},
+]}
+
+EXTRACT_RUTS = Process(
+    id="extract-ruts",
+    version=version(),
+    title="Find rut lines in a drone elevation model or rut mask",
+    description=(
+        "Finds rut centrelines in a single-band GeoTIFF, either an elevation model (DEM/DSM, "
+        "metres; ruts are narrow depressions below the local ground) or a rut mask / "
+        "probability raster, and measures their length, width and depth below the local "
+        "ground, with a depth class. Results are estimates from geometry: " + CAUTION
+    ),
+    keywords=("ruts", "elevation model", "rut mask", "rut depth", "GeoTIFF"),
+    inputs={
+        "raster": InputSpec(
+            "Raster", "The elevation model or rut mask: {\"href\": \"/uploads/<id>\"} naming a "
+            "GeoTIFF uploaded to this service, or the file inline as {\"value\": \"<base64>\", "
+            "\"encoding\": \"base64\", \"mediaType\": \"image/tiff\"}.", _RASTER_SCHEMA),
+        "dem": InputSpec(
+            "Elevation model", "With a rut mask: the elevation model to measure depths from "
+            "(same forms as 'raster'; resampled onto the mask's grid when they differ).",
+            _RASTER_SCHEMA, min_occurs=0),
+        "kind": InputSpec(
+            "Raster kind", "How to read 'raster': 'dem', 'mask', or 'auto' (boolean and 8-bit "
+            "rasters and rasters with values within 0..1 are masks; the rest elevation models "
+            "in metres).", {"type": "string", "enum": ["auto", "dem", "mask"],
+                            "default": "auto"}, min_occurs=0),
+        "threshold": InputSpec(
+            "Threshold", "Elevation model: least depth below the local ground that counts as "
+            "rut, metres (default 0.03). Mask: least value that counts as rut, 0..1 (default "
+            "0.5).", {"type": "number", "exclusiveMinimum": 0, "maximum": 100}, min_occurs=0),
+        "min_length": InputSpec(
+            "Shortest line", "Lines shorter than this are dropped, metres.",
+            _num("metres", MIN_LENGTH_M, 0.0, 10000.0, exclusive=True), min_occurs=0),
+    },
+    outputs={
+        "rut_lines": OutputSpec(
+            "Rut lines", "One line per rut with length_m, width_m, depth_median_m, depth_max_m "
+            "and depth_class; GeoJSON in lon/lat WGS 84, the GeoPackage in the raster's CRS.",
+            _LAYER_OUTPUT_SCHEMA, (GEOJSON, GEOPACKAGE), GEOPACKAGE),
+    },
+    run=_run_extract,
+    check=_check_extract,
 )
 
 # --- simulate --------------------------------------------------------------------------------
@@ -351,13 +540,6 @@ def _run_simulate(inputs: dict[str, Any], ctx: RunContext) -> Manifest:
                                            + CAUTION}}
     write_json(ctx.work_dir / "wheel_tracks.geojson", doc)
     return {"wheel_tracks": {GEOJSON: "wheel_tracks.geojson"}}
-
-
-def _num(description: str, default: float, lo: float, hi: float, exclusive: bool = False
-         ) -> dict[str, Any]:
-    bound = {"exclusiveMinimum": lo} if exclusive else {"minimum": lo}
-    return {"type": "number", "description": description, "default": default, **bound,
-            "maximum": hi}
 
 
 SIMULATE = Process(

@@ -32,6 +32,9 @@ GEOJSON = "application/geo+json"
 GEOPACKAGE = "application/geopackage+sqlite3"
 JSON = "application/json"
 TEXT = "text/plain"
+GEOTIFF = "image/tiff; application=geotiff"
+#: file suffixes of rasters (GeoTIFF), as uploaded or written from an inline value
+RASTER_SUFFIXES = (".tif", ".tiff")
 #: media types that can be sent inline (by value); others only by reference
 INLINE_TYPES = (GEOJSON, JSON, TEXT)
 ALL_JOB_CONTROL = ("sync-execute", "async-execute", "dismiss")
@@ -265,7 +268,7 @@ def load_registry(builtin: Iterable[Process] | None = None, plugins: bool = True
 def builtin_processes() -> list[Process]:
     from . import builtin
 
-    return [builtin.ANALYZE, builtin.SIMULATE, builtin.ECHO]
+    return [builtin.ANALYZE, builtin.EXTRACT_RUTS, builtin.SIMULATE, builtin.ECHO]
 
 
 # --- helpers for process functions ----------------------------------------------------------

@@ -36,7 +36,7 @@ from .problems import (
     not_found_job,
     not_found_process,
 )
-from .processes import CheckContext, InputProblem
+from .processes import RASTER_SUFFIXES, CheckContext, InputProblem
 
 router = APIRouter()
 _bearer = HTTPBearer(auto_error=False, description="API key, when the service requires one")
@@ -48,8 +48,9 @@ UPLOAD_TYPES = {
     "application/json": ".geojson",
     "application/gpx+xml": ".gpx",
     "application/flatgeobuf": ".fgb",
+    "image/tiff": ".tif",
 }
-UPLOAD_SUFFIXES = {".gpkg", ".geojson", ".json", ".gpx", ".fgb"}
+UPLOAD_SUFFIXES = {".gpkg", ".geojson", ".json", ".gpx", ".fgb", *RASTER_SUFFIXES}
 _JSON_RANGES = {"*/*", "application/*", "application/json", "application/problem+json",
                 "application/geo+json"}
 
@@ -417,13 +418,17 @@ def _suffix(media: str, name: str | None) -> str:
     if media in ("application/octet-stream", "") and suffix in UPLOAD_SUFFIXES:
         return suffix
     raise Problem(415, "unsupported-media-type", "unsupported upload type",
-                  f"Uploads are GeoPackage, GeoJSON, GPX or FlatGeobuf; got Content-Type "
+                  f"Uploads are GeoPackage, GeoJSON, GPX, FlatGeobuf or GeoTIFF; got Content-Type "
                   f"{media or 'none'!r}. Send one of {', '.join(UPLOAD_TYPES)}, or "
                   "application/octet-stream with ?name=<file name with its extension>.")
 
 
 def _validate_upload(path: Path, max_features: int, max_vertices: int) -> tuple[str, int,
                                                                                  str | None]:
+    if path.suffix in RASTER_SUFFIXES:
+        from .builtin import check_raster  # rasterio loads only when a raster comes
+
+        return "raster", 0, check_raster(path)
     layer = read_layer(path, max_features=max_features)
     vertices = sum(len(p) for parts in layer.parts for p in parts)
     if vertices > max_vertices:
@@ -440,12 +445,13 @@ def _upload_doc(upload: Upload, base: str) -> dict[str, Any]:
             "links": [documents.link(href, "self", "this upload")]}
 
 
-@router.post("/uploads", status_code=201, summary="Upload a rut layer",
+@router.post("/uploads", status_code=201, summary="Upload a rut layer or a raster",
              openapi_extra={"requestBody": _UPLOAD_BODY})
 async def upload(request: Request, owner: Owner,
                  name: Annotated[str | None, Query(max_length=200)] = None) -> JSONResponse:
-    """Streams the body to disk (size-limited), checks that it is a readable line layer, and
-    returns an id and an href to give as {"href": ...} input."""
+    """Streams the body to disk (size-limited), checks that it is a readable line layer or a
+    single-band georeferenced raster, and returns an id and an href to give as {"href": ...}
+    input."""
     svc = _service(request)
     media = _media_type(request)
     suffix = _suffix(media, name)
@@ -476,7 +482,8 @@ async def upload(request: Request, owner: Owner,
         except RutwiseError as exc:
             exc.message = exc.message.replace(str(path), repr(name or path.name)[1:-1])
             if isinstance(exc, BadInput):
-                exc.hint = exc.hint or "Check that the file is a complete vector layer."
+                exc.hint = exc.hint or ("Check that the file is a complete vector layer or "
+                                        "GeoTIFF.")
             raise
     except BaseException:
         shutil.rmtree(folder, ignore_errors=True)

@@ -31,7 +31,8 @@ from .settings import Settings
 
 log = logging.getLogger("service")
 
-_PRELOAD = ["geoops.pipeline", "geoops.scenarios", "service.builtin", "service.problems"]
+_PRELOAD = ["geoops.pipeline", "geoops.raster", "geoops.scenarios", "service.builtin",
+            "service.problems"]
 _STOP_GRACE_S = 3.0
 
 

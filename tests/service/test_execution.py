@@ -68,7 +68,7 @@ def test_upload_refusals(make_client: Any, ruts_fc: dict[str, Any]) -> None:
     assert "/uploads/" not in r.json()["detail"]  # no server paths in messages
     r = _upload(client, b"x" * 20_000, "application/geo+json")
     assert r.status_code == 413 and "max_upload_mb" in r.json()["detail"]
-    r = _upload(client, json.dumps(ruts_fc).encode()[:10_000], "image/tiff")
+    r = _upload(client, json.dumps(ruts_fc).encode()[:10_000], "image/png")
     assert r.status_code == 415
     small = {"type": "FeatureCollection", "features": [
         {**f, "geometry": {**f["geometry"], "coordinates": f["geometry"]["coordinates"][:20]}}

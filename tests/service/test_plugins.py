@@ -47,7 +47,8 @@ def test_plugin_is_listed_described_and_run(installed_plugin: None, tmp_path: Pa
 
 
 def test_without_plugins_only_the_builtins() -> None:
-    assert [p.id for p in load_registry(plugins=False).all()] == ["analyze", "echo", "simulate"]
+    assert [p.id for p in load_registry(plugins=False).all()] == [
+        "analyze", "echo", "extract-ruts", "simulate"]
 
 
 def test_12_async_only_process_runs_async_without_prefer(tmp_path: Path) -> None:
