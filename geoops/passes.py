@@ -147,7 +147,7 @@ def _assemble_group(
     # the front rut of the first leg pair, its reversals in the rear rut's travel order
     _, first_rear, first_front, first_res = items[0]
     rear_leg0 = legs[first_rear]
-    corners = sorted(_rut_reversals(legs, legs[first_front].rut), key=lambda r: r.s)
+    corners = sorted(legs[first_front].reversals, key=lambda r: r.s)
     if not first_res.same_order:
         corners = corners[::-1]
     rear_revs = sorted(rear_leg0.reversals, key=lambda r: r.s)
@@ -172,7 +172,7 @@ def _assemble_group(
     p_ref = 1.0 / (1.0 + np.exp(-log_odds))
     conflicting = len(signs) > 1 and max(p_ref, 1 - p_ref) < DECIDE_AT
     decided = max(p_ref, 1 - p_ref) >= DECIDE_AT
-    n_rev = len(legs_of(legs, rear_rut)) - 1
+    n_rev = len(rear_leg0.reversals)
     result = []
     if decided:
         h_ref = 1 if p_ref >= 0.5 else -1
@@ -225,14 +225,3 @@ def _assemble_group(
             )
         )
     return result
-
-
-def legs_of(legs: list[Leg], rut: int) -> list[Leg]:
-    return [leg for leg in legs if leg.rut == rut]
-
-
-def _rut_reversals(legs: list[Leg], rut: int) -> list[Reversal]:
-    for leg in legs:
-        if leg.rut == rut:
-            return leg.reversals
-    return []

@@ -21,7 +21,7 @@ import pyproj
 import shapely
 
 from . import __version__
-from .axles import same_vehicle, spacing
+from .axles import TRACK_MAX_M, same_vehicle, spacing
 from .clean import CleanRut, clean_rut
 from .crosscheck import steady_turn_wheelbase
 from .curves import Array, as_linestrings
@@ -232,8 +232,15 @@ def _axle_units(leg_passes: list[LegPass], legs: list[Leg]) -> list[tuple[int, .
     """
     single = [i for i, lp in enumerate(leg_passes) if lp.reversals == 0]
     cands = []
-    for a_pos, a in enumerate(single):
-        for b in single[a_pos + 1 :]:
+    if len(single) > 1:
+        # only rear tracks within a track width of each other can be two sides of one axle
+        rears = as_linestrings([legs[leg_passes[i].rear_leg].track.xy for i in single])
+        tree = shapely.STRtree(rears)
+        left, right = tree.query(rears, predicate="dwithin", distance=TRACK_MAX_M)
+        for ia, ib in zip(left.tolist(), right.tolist(), strict=True):
+            if ia >= ib:
+                continue
+            a, b = single[ia], single[ib]
             la, lb = leg_passes[a], leg_passes[b]
             sp = same_vehicle(
                 legs[la.rear_leg].track,
