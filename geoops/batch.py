@@ -53,8 +53,8 @@ from .batch_inputs import KEY_SCHEME, BatchInput, find_inputs, input_key
 from .batch_report import merge_results, report_markdown
 from .batch_units import UnitPiece, analyze_unit, assemble_units, components, plan_units
 from .errors import CrsError, RutwiseError, writing_to
-from .io import read_layer, write_geopackage
-from .pipeline import CAUTION, AnalyzeOptions, analyze_layer, write_result
+from .io import write_geopackage
+from .pipeline import CAUTION, AnalyzeOptions, analyze_layer, read_input, write_result
 
 if TYPE_CHECKING:  # pragma: no cover
     from distributed import Client
@@ -149,7 +149,7 @@ def first_step(item: BatchInput, key: str, out_path: str, unit_ruts: int | None)
     """Read the layer; analyse and write it whole when it is small, else plan its units."""
     t0 = time.perf_counter()
     try:
-        layer = read_layer(item.path, layer=item.options.layer, id_field=item.options.id_field)
+        layer = read_input(item.path, item.options)
         if unit_ruts is not None and len(layer) > unit_ruts:
             units = plan_units(components(layer, item.options), unit_ruts)
             if len(units) > 1:
@@ -169,7 +169,7 @@ def first_step(item: BatchInput, key: str, out_path: str, unit_ruts: int | None)
 def unit_step(item: BatchInput, features: list[int], first: bool) -> tuple[UnitPiece, float]:
     """Analyse one work unit of a large layer (geometries back in the input CRS)."""
     t0 = time.perf_counter()
-    layer = read_layer(item.path, layer=item.options.layer, id_field=item.options.id_field)
+    layer = read_input(item.path, item.options)
     piece = analyze_unit(layer, features, item.options, first)
     return piece, time.perf_counter() - t0
 

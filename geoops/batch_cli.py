@@ -72,8 +72,9 @@ def configure_parser(b: argparse.ArgumentParser) -> argparse.ArgumentParser:
     """Add the batch arguments to ``b``."""
     b.add_argument(
         "source",
-        help="a folder (searched recursively for .geojson .json .gpkg .gpx .fgb .zip) or a "
-        "manifest (.yaml, .json or .csv: path, layer, crs, accuracy, id_field per layer)",
+        help="a folder (searched recursively for .geojson .json .gpkg .gpx .fgb .zip, and "
+        ".tif .tiff drone rasters) or a manifest (.yaml, .json or .csv: path, layer, crs, "
+        "accuracy, id_field per layer)",
     )
     b.add_argument(
         "-o",

@@ -26,7 +26,7 @@ from .errors import BadInput
 from .pipeline import AnalyzeOptions
 
 #: file extensions searched for in a folder
-LAYER_SUFFIXES = (".geojson", ".json", ".gpkg", ".gpx", ".fgb", ".zip")
+LAYER_SUFFIXES = (".geojson", ".json", ".gpkg", ".gpx", ".fgb", ".zip", ".tif", ".tiff")
 #: file extensions read as a manifest when given as SOURCE (.json only when it lists layers)
 MANIFEST_SUFFIXES = (".yaml", ".yml", ".csv", ".json")
 #: manifest entry keys besides ``path``

@@ -83,7 +83,7 @@ def print_summary(result: object, outputs: Sequence[Path], source: str) -> None:
 
 
 def _cmd_analyze(args: argparse.Namespace) -> int:
-    from .pipeline import AnalyzeOptions, analyze_file, analyze_layer, write_result
+    from .pipeline import AnalyzeOptions, analyze_file, write_result
 
     options = AnalyzeOptions(
         layer=args.layer,
@@ -108,27 +108,12 @@ def _cmd_analyze(args: argparse.Namespace) -> int:
             f"The output {str(output)!r} would overwrite the input.",
             "Name another output file with -o.",
         )
-    from .raster_defaults import VECTOR_SUFFIXES
-
-    # rasterio and scikit-image take a second to import: only for what may be a raster
-    if Path(args.input).suffix.lower() not in VECTOR_SUFFIXES and _is_raster(args.input):
-        from .raster import extract_ruts
-
-        # a drone elevation model or rut mask: extract the rut lines first
-        result = analyze_layer(extract_ruts(args.input).as_input_layer(), options)
-    else:
-        result = analyze_file(args.input, options)
+    result = analyze_file(args.input, options)
     with writing_to(output):
         outputs = write_result(result, output, out_crs=args.out_crs)
     if not args.quiet:
         print_summary(result, outputs, args.input)
     return 0
-
-
-def _is_raster(path: str) -> bool:
-    from .raster import is_raster
-
-    return is_raster(path)
 
 
 def _cmd_serve(args: argparse.Namespace) -> int:

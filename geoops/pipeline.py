@@ -500,12 +500,26 @@ def _metadata(
     }
 
 
+def read_input(path: str | os.PathLike[str], options: AnalyzeOptions = AnalyzeOptions()
+               ) -> InputLayer:
+    """The rut layer in ``path``: a vector layer as read, or the rut lines extracted from a
+    drone raster (elevation model or rut mask) with the default extraction options."""
+    from .raster_defaults import VECTOR_SUFFIXES
+
+    # rasterio and scikit-image take a second to import: only for what may be a raster
+    if Path(path).suffix.lower() not in VECTOR_SUFFIXES:
+        from .raster import extract_ruts, is_raster
+
+        if is_raster(path):
+            return extract_ruts(path).as_input_layer()
+    return read_layer(path, layer=options.layer, id_field=options.id_field)
+
+
 def analyze_file(
     path: str | os.PathLike[str], options: AnalyzeOptions = AnalyzeOptions()
 ) -> AnalysisResult:
-    """Read a layer from ``path`` and analyse it."""
-    layer = read_layer(path, layer=options.layer, id_field=options.id_field)
-    return analyze_layer(layer, options)
+    """Read a layer (or extract one from a raster) from ``path`` and analyse it."""
+    return analyze_layer(read_input(path, options), options)
 
 
 def _target_crs(result: AnalysisResult, out_crs: str | None, geojson: bool) -> pyproj.CRS:

@@ -468,3 +468,15 @@ def test_crossings_tees_and_rings(tmp_path: Path) -> None:
     assert len(circle) == 1
     assert circle.lines[0].is_closed
     assert circle.length_m[0] == pytest.approx(2 * np.pi * 4.0, rel=0.01)
+
+
+def test_analyze_and_batch_discovery_accept_a_raster(tmp_path: Path, dem: Path) -> None:
+    """`rutwise analyze` (analyze_file) extracts first when given a raster, and a batch folder
+    picks rasters up beside vector layers."""
+    from geoops.batch_inputs import LAYER_SUFFIXES
+    from geoops.pipeline import analyze_file
+
+    result = analyze_file(dem)
+    assert result.passes, "the simulated car's ruts make at least one pass"
+    assert result.passes[0].wheelbase_m is None or 2.4 < result.passes[0].wheelbase_m < 3.0
+    assert ".tif" in LAYER_SUFFIXES and ".tiff" in LAYER_SUFFIXES
