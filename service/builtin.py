@@ -22,7 +22,7 @@ import pyproj
 import shapely
 
 from geoops.errors import LimitExceeded, RutwiseError
-from geoops.io import InputLayer, OutputLayer, geojson_document, read_layer
+from geoops.io import InputLayer, OutputLayer, geojson_document, read_layer, write_geopackage
 from geoops.kinematics import Vehicle, simulate_steering
 from geoops.pipeline import CAUTION, AnalyzeOptions, analyze_layer, result_layers, write_result
 from geoops.raster_defaults import DEPTH_LIMITS_M, MIN_LENGTH_M
@@ -253,6 +253,8 @@ def _analyze(inputs: dict[str, Any], ctx: RunContext) -> Manifest:
     if vertices > ctx.max_vertices:
         raise LimitExceeded(f"The layer has {vertices} vertices; the limit is "
                             f"{ctx.max_vertices}.", "Simplify or split the layer.")
+    if ctx.scheduler and path.suffix.lower() not in RASTER_SUFFIXES:
+        return _analyze_on_cluster(path, options, ctx)
     ctx.progress(15, "analysing the ruts")
     result = analyze_layer(layer, options)
     ctx.progress(70, "writing the results")
@@ -266,6 +268,34 @@ def _analyze(inputs: dict[str, Any], ctx: RunContext) -> Manifest:
         write_result(result, ctx.work_dir / "result.gpkg", out_crs=options.out_crs)
         for formats in manifest.values():
             formats[GEOPACKAGE] = "result.gpkg"
+    return manifest
+
+
+def _analyze_on_cluster(path: Path, options: AnalyzeOptions, ctx: RunContext) -> Manifest:
+    """The analysis on the Dask cluster (setting ``scheduler``): the cluster writes the
+    GeoPackage in the input's CRS into the job folder; the outputs are made from it."""
+    from .cluster import read_result, reproject, run_on_cluster
+
+    ctx.progress(15, "analysing the ruts on the cluster")
+    gpkg = ctx.work_dir / "result.gpkg"
+    run_on_cluster(path, options, gpkg, ctx.scheduler)
+    ctx.progress(70, "writing the results")
+    layers, metadata, crs = read_result(gpkg)
+    meta = dict(metadata, output_crs="EPSG:4326")
+    passes, rut_layer = (reproject(layer, crs, WGS84) for layer in layers)
+    write_json(ctx.work_dir / "passes.geojson", geojson_document(passes, meta))
+    write_json(ctx.work_dir / "ruts.geojson", geojson_document(rut_layer, meta))
+    manifest: Manifest = {"passes": {GEOJSON: "passes.geojson"},
+                          "ruts": {GEOJSON: "ruts.geojson"}}
+    if GEOPACKAGE not in ctx.wanted and ctx.wanted:
+        gpkg.unlink()
+        return manifest
+    if options.out_crs:
+        target = pyproj.CRS.from_user_input(options.out_crs)
+        write_geopackage(gpkg, [reproject(layer, crs, target) for layer in layers],
+                         target.to_wkt(), dict(metadata, output_crs=target.to_string()))
+    for formats in manifest.values():
+        formats[GEOPACKAGE] = "result.gpkg"
     return manifest
 
 

@@ -58,6 +58,8 @@ class Problem(Exception):
 
 
 def _status_of(exc: RutwiseError) -> int:
+    if exc.kind == "cluster-unavailable":  # service.cluster.ClusterUnavailable
+        return 503
     if isinstance(exc, LimitExceeded):
         return 413
     if isinstance(exc, NotEstimable):
@@ -75,6 +77,7 @@ def from_rutwise_error(exc: RutwiseError, input_id: str | None = None) -> Proble
         "crs-error": "coordinate reference system problem",
         "limit-exceeded": "input over a limit",
         "not-estimable": "not estimable from this geometry",
+        "cluster-unavailable": "computing cluster unavailable",
     }.get(exc.kind, "request cannot be processed")
     extra: dict[str, Any] = {"input": input_id} if input_id else {}
     return Problem(_status_of(exc), exc.kind, title, detail, **extra)

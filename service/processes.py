@@ -99,6 +99,8 @@ class RunContext:
     progress: Callable[[int, str], None]
     #: media types the request asked for; a process may skip making the others
     wanted: frozenset[str] = frozenset()
+    #: address of the Dask scheduler to run analyses on; empty: run them in this process
+    scheduler: str = ""
 
 
 Manifest = dict[str, dict[str, str]]

@@ -513,9 +513,14 @@ def upload_info(request: Request, upload_id: Annotated[str, PathParam(max_length
 def health(request: Request) -> JSONResponse:
     svc = _service(request)
     counts = svc.store.count_by_status()
+    cluster: dict[str, Any] = {"configured": bool(svc.settings.scheduler)}
+    if svc.settings.scheduler:
+        from .cluster import reachable
+
+        cluster["reachable"] = reachable(svc.settings.scheduler) is None
     return JSONResponse({"status": "ok", "version": geoops.__version__,
                          "jobs_running": counts["running"], "jobs_queued": counts["accepted"],
-                         "workers": svc.settings.workers})
+                         "workers": svc.settings.workers, "cluster": cluster})
 
 
 @router.get("/metrics", summary="Prometheus metrics", response_class=PlainTextResponse)

@@ -45,6 +45,10 @@ class Settings:
         A job running longer is stopped and reported failed.
     workers
         How many jobs run at the same time (each in its own process).
+    scheduler
+        Address of a Dask scheduler (``tcp://host:port``) on which ``analyze`` jobs compute;
+        empty means they compute in the service's own worker processes. The Dask workers
+        must see ``data_dir`` under the same path.
     """
 
     data_dir: Path = Path("data")
@@ -57,6 +61,7 @@ class Settings:
     max_vertices: int = 2_000_000
     job_timeout_s: float = 600.0
     workers: int = 2
+    scheduler: str = ""
 
     def __post_init__(self) -> None:
         if self.port < 0 or self.port > 65535:

@@ -62,12 +62,13 @@ def _problem_doc(exc: BaseException) -> dict[str, Any]:
 
 
 def job_main(data_dir: str, job_id: str, run: RunFunction, inputs: dict[str, Any],
-             max_features: int, max_vertices: int, wanted: frozenset[str]) -> None:
+             max_features: int, max_vertices: int, wanted: frozenset[str],
+             scheduler: str = "") -> None:
     """Body of a worker process: run one job and leave its outcome in the job folder."""
     store = JobStore(Path(data_dir), create=False)
     work = store.job_dir(job_id)
     ctx = RunContext(work, store.data_dir, max_features, max_vertices,
-                     lambda pct, msg: store.set_progress(job_id, pct, msg), wanted)
+                     lambda pct, msg: store.set_progress(job_id, pct, msg), wanted, scheduler)
     try:
         manifest = run(inputs, ctx)
     except BaseException as exc:  # everything ends up in problem.json
@@ -158,7 +159,8 @@ class Runner:
             proc = self._ctx.Process(
                 target=job_main, daemon=True, name=f"rutwise-job-{job_id}",
                 args=(str(self.store.data_dir), job_id, process.run, inputs,
-                      self.settings.max_features, self.settings.max_vertices, wanted))
+                      self.settings.max_features, self.settings.max_vertices, wanted,
+                      self.settings.scheduler))
             await anyio.to_thread.run_sync(proc.start)
             done = _exit_future(proc)
             self._procs[job_id] = proc

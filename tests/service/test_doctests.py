@@ -8,7 +8,8 @@ import importlib
 import pytest
 
 
-@pytest.mark.parametrize("name", ["service.settings", "service.builtin", "service.routes"])
+@pytest.mark.parametrize("name", ["service.settings", "service.builtin", "service.routes",
+                                  "service.cluster"])
 def test_docstring_examples(name: str) -> None:
     result = doctest.testmod(importlib.import_module(name))
     assert result.attempted > 0 and result.failed == 0
