@@ -23,6 +23,7 @@ from .curves import (
     smooth,
     turning_angles,
     unit_tangents,
+    windowed_curvature,
 )
 from .errors import BadInput
 
@@ -78,6 +79,15 @@ class CleanRut:
     @property
     def window_pts(self) -> int:
         return max(int(round(self.window_m / self.step)), 5)
+
+    def curvature(self) -> tuple[Array, np.ndarray, float]:
+        """Curvature across one smoothing window: (signed curvature 1/m, the sample index of
+        each value, its noise standard deviation from the tangent variance)."""
+        half = max(self.window_pts // 2, 1)
+        kappa = windowed_curvature(self.tangents, self.step, half)
+        centres = np.arange(half, half + len(kappa))
+        noise = float(np.sqrt(2.0 * self.tangent_var) / (2 * half * self.step))
+        return kappa, centres, noise
 
 
 #: metres of extra gap a radian of heading change costs when chaining parts: a part that

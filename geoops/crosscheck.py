@@ -26,14 +26,8 @@ MAX_RADIUS_IN_WHEELBASES = 3.0
 
 
 def _windowed_curvature(track: CleanRut) -> tuple[np.ndarray, np.ndarray, int]:
-    heading = np.unwrap(np.arctan2(track.tangents[:, 1], track.tangents[:, 0]))
-    k = max(track.window_pts // 2, 1)
-    if len(heading) <= 2 * k + 2:
-        return np.empty(0), np.empty(0, dtype=np.int64), k
-    base = 2 * k * track.step
-    kappa = (heading[2 * k :] - heading[: -2 * k]) / base
-    centres = np.arange(k, len(heading) - k)
-    return kappa, centres, k
+    kappa, centres, _ = track.curvature()
+    return kappa, centres, max(track.window_pts // 2, 1)
 
 
 def steady_turn_wheelbase(

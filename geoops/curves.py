@@ -203,8 +203,10 @@ def turning_angles(xy: Array) -> Array:
     return np.asarray(np.angle(np.exp(1j * np.diff(h))), dtype=np.float64)
 
 
-def curvature(tangents: Array, step: float) -> Array:
-    """Signed curvature (1/m, positive to the left) from unit tangents at uniform spacing.
+def windowed_curvature(tangents: Array, step: float, half: int) -> Array:
+    """Signed curvature (1/m, positive to the left) as the heading change across ``2 * half``
+    samples, for the samples ``half .. n - half - 1``: the heading change across a smoothing
+    window, never between neighbouring samples (which only measures noise).
 
     Examples
     --------
@@ -212,19 +214,14 @@ def curvature(tangents: Array, step: float) -> Array:
     >>> r = 5.0
     >>> xy = np.column_stack([r * np.cos(t), r * np.sin(t)])
     >>> step = float(np.hypot(*(xy[1] - xy[0])))
-    >>> k = curvature(unit_tangents(xy, 7), step)
-    >>> bool(np.allclose(k[5:-5], 1 / r, rtol=1e-3))
-    True
+    >>> k = windowed_curvature(unit_tangents(xy, 7), step, 3)
+    >>> len(k), bool(np.allclose(k, 1 / r, rtol=1e-3))
+    (95, True)
     """
-    h = np.unwrap(np.arctan2(tangents[:, 1], tangents[:, 0]))
-    if len(h) < 2:
-        return np.zeros(len(h))
-    return np.asarray(np.gradient(h, step), dtype=np.float64)
-
-
-def left_normals(tangents: Array) -> Array:
-    """Unit normals 90 degrees to the left of unit tangents."""
-    return np.column_stack([-tangents[:, 1], tangents[:, 0]])
+    heading = np.unwrap(np.arctan2(tangents[:, 1], tangents[:, 0]))
+    if len(heading) <= 2 * half:
+        return np.empty(0)
+    return np.asarray((heading[2 * half :] - heading[: -2 * half]) / (2 * half * step))
 
 
 @dataclass

@@ -82,12 +82,6 @@ class PairResult:
     ``same_order`` whether the two tracks' vertex orders run the same way.
     """
 
-    def follows(self, track: int) -> bool | None:
-        """Whether travel follows the vertex order of track 0 or 1 (None when not decided)."""
-        if self.follows_first is None:
-            return None
-        return self.follows_first if track == 0 else self.follows_first == self.same_order
-
     verdict: str
     reason: str
     rear: int | None
@@ -103,6 +97,12 @@ class PairResult:
     tolerance: float
     n_eff: float
     fits: tuple[HypothesisFit, ...]
+
+    def follows(self, track: int) -> bool | None:
+        """Whether travel follows the vertex order of track 0 or 1 (None when not decided)."""
+        if self.follows_first is None:
+            return None
+        return self.follows_first if track == 0 else self.follows_first == self.same_order
 
 
 def _interp_bool(mask: np.ndarray, s: Array, step: float) -> np.ndarray:
@@ -306,17 +306,12 @@ def curvature_varies(track: CleanRut, z: float = 3.0) -> bool:
     the tangent variance. True when the variance of those samples exceeds the noise variance
     by ``z`` standard errors of a variance estimate.
     """
-    heading = np.unwrap(np.arctan2(track.tangents[:, 1], track.tangents[:, 0]))
-    k = max(track.window_pts // 2, 1)
-    if len(heading) <= 2 * k + 2:
-        return False
-    base = 2 * k * track.step
-    kappa = (heading[2 * k :] - heading[: -2 * k]) / base
-    ok = track.has_data[k:-k]
-    samples = kappa[ok][:: 2 * k]
+    kappa, centres, noise = track.curvature()
+    half = max(track.window_pts // 2, 1)
+    samples = kappa[track.has_data[centres]][:: 2 * half]
     if len(samples) < 4:
         return False
-    noise_var = 2.0 * track.tangent_var / base**2
+    noise_var = noise**2
     excess = float(np.var(samples, ddof=1)) - noise_var
     # standard error of a sample variance of m normal values: var * sqrt(2 / (m - 1))
     return excess > z * noise_var * np.sqrt(2.0 / (len(samples) - 1)) + 1e-12

@@ -153,16 +153,10 @@ def _rear_attributes(rut: CleanRut, wheelbase: float | None) -> tuple[float | No
     samples, which only measures noise); its noise follows from the tangent variance. A path
     whose curvature never rises clearly above that noise has no minimum radius (null).
     """
-    heading = np.unwrap(np.arctan2(rut.tangents[:, 1], rut.tangents[:, 0]))
-    half = max(rut.window_pts // 2, 1)
-    if len(heading) <= 2 * half + 2:
-        return None, None
-    base = 2 * half * rut.step
-    kappa = np.abs(heading[2 * half :] - heading[: -2 * half]) / base
-    kappa = kappa[rut.has_data[half:-half]]
+    kappa, centres, noise = rut.curvature()
+    kappa = np.abs(kappa[rut.has_data[centres]])
     if len(kappa) < 5:
         return None, None
-    noise = np.sqrt(2.0 * rut.tangent_var) / base
     # the 95th percentile keeps a sharp turn but not a single noisy sample
     kmax = float(np.percentile(kappa, 95))
     if kmax <= 3.0 * noise or kmax < 1e-4:
