@@ -10,7 +10,6 @@ from __future__ import annotations
 
 import argparse
 import sys
-import warnings
 from collections.abc import Sequence
 from typing import TYPE_CHECKING, Any
 
@@ -20,8 +19,6 @@ from .errors import RutwiseError
 if TYPE_CHECKING:  # pragma: no cover
     from .batch import Outcome
 
-EXIT_USER_ERROR = 2
-EXIT_BUG = 1
 
 
 def _line(outcome: Outcome, done: int, total: int) -> str:
@@ -200,27 +197,11 @@ def main(argv: Sequence[str] | None = None) -> int:
     )
     parser.add_argument("--debug", action="store_true", help="show tracebacks of internal errors")
     args = parser.parse_args(argv)
-    try:
-        with warnings.catch_warnings():
-            warnings.simplefilter("ignore", RuntimeWarning)
-            return int(args.func(args))
-    except RutwiseError as exc:
-        print(f"rutwise: error: {exc}", file=sys.stderr)
-        return EXIT_USER_ERROR
-    except KeyboardInterrupt:
-        print(
-            "rutwise: interrupted (finished inputs are kept; run again to resume)", file=sys.stderr
-        )
-        return 130
-    except Exception as exc:
-        if args.debug:
-            raise
-        print(
-            f"rutwise: internal error: {type(exc).__name__}: {exc} "
-            "(rerun with --debug for details and report it)",
-            file=sys.stderr,
-        )
-        return EXIT_BUG
+    from .cli import run_command  # here: geoops.cli imports this module
+
+    return run_command(
+        args, "rutwise: interrupted (finished inputs are kept; run again to resume)"
+    )
 
 
 if __name__ == "__main__":  # pragma: no cover

@@ -186,9 +186,9 @@ def build_parser() -> argparse.ArgumentParser:
     return parser
 
 
-def main(argv: Sequence[str] | None = None) -> int:
-    parser = build_parser()
-    args = parser.parse_args(argv)
+def run_command(args: argparse.Namespace, interrupted: str = "rutwise: interrupted") -> int:
+    """Run a parsed command: user errors -> one line and exit 2; bugs -> one line and exit 1
+    (the traceback only with ``--debug``)."""
     try:
         with warnings.catch_warnings():
             warnings.simplefilter("ignore", RuntimeWarning)
@@ -197,7 +197,7 @@ def main(argv: Sequence[str] | None = None) -> int:
         print(f"rutwise: error: {exc}", file=sys.stderr)
         return EXIT_USER_ERROR
     except KeyboardInterrupt:
-        print("rutwise: interrupted", file=sys.stderr)
+        print(interrupted, file=sys.stderr)
         return 130
     except Exception as exc:  # a bug: say so in one line unless debugging
         if args.debug:
@@ -208,6 +208,11 @@ def main(argv: Sequence[str] | None = None) -> int:
             file=sys.stderr,
         )
         return EXIT_BUG
+
+
+def main(argv: Sequence[str] | None = None) -> int:
+    parser = build_parser()
+    return run_command(parser.parse_args(argv))
 
 
 if __name__ == "__main__":  # pragma: no cover
