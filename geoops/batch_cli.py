@@ -20,7 +20,6 @@ if TYPE_CHECKING:  # pragma: no cover
     from .batch import Outcome
 
 
-
 def _line(outcome: Outcome, done: int, total: int) -> str:
     if outcome.status == "failed":
         what = f"failed: {outcome.reason}"
@@ -199,9 +198,7 @@ def main(argv: Sequence[str] | None = None) -> int:
     args = parser.parse_args(argv)
     from .cli import run_command  # here: geoops.cli imports this module
 
-    return run_command(
-        args, "rutwise: interrupted (finished inputs are kept; run again to resume)"
-    )
+    return run_command(args, "rutwise: interrupted (finished inputs are kept; run again to resume)")
 
 
 if __name__ == "__main__":  # pragma: no cover
