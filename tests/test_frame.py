@@ -9,7 +9,7 @@ import pickle
 import numpy as np
 import pyproj
 import pytest
-from hypothesis import given, settings
+from hypothesis import example, given, settings
 from hypothesis import strategies as st
 
 from geoops.errors import BadInput, CrsError
@@ -305,6 +305,9 @@ FRAMES = [
     du=st.lists(st.floats(-1.0, 1.0), min_size=1, max_size=20),
     dv=st.floats(-1.0, 1.0),
 )
+# points within PROJ's centre tolerance (found by hypothesis in CI): 0.4 mm and 0.04 mm out
+@example(which=0, du=[1e-7, 1e-8, 0.5], dv=0.0)
+@example(which=3, du=[1e-7], dv=1e-9)
 def test_round_trip_within_1e9_degrees_and_1e6_metres(
     which: int, du: list[float], dv: float
 ) -> None:
@@ -324,7 +327,9 @@ def test_round_trip_within_1e9_degrees_and_1e6_metres(
     assert np.abs(dlon[~near]).max(initial=0.0) < 1e-9
     assert np.abs(dlat[~near]).max(initial=0.0) < 1e-9
     x2, y2 = frame.to_local(back_lon, back_lat)
-    assert np.hypot(x2 - x, y2 - y).max() < 1e-6
+    again = np.hypot(x2 - x, y2 - y)
+    assert again[~near].max(initial=0.0) < 1e-6
+    assert again.max() < 1e-3  # the centre tolerance again, near the centre
 
 
 def test_shapes_are_kept() -> None:
