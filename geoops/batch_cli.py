@@ -151,12 +151,7 @@ def run_batch_command(args: argparse.Namespace) -> int:
     from .batch import find_inputs, run_batch
     from .pipeline import AnalyzeOptions
 
-    defaults = AnalyzeOptions(
-        crs=args.crs,
-        accuracy=args.accuracy,
-        id_field=args.id_field,
-        accuracy_field=args.accuracy_field,
-    )
+    defaults = AnalyzeOptions.from_args(args)
     if args.workers is not None and args.workers < 1:
         raise RutwiseError(
             f"--workers must be at least 1, got {args.workers}.",

@@ -85,14 +85,7 @@ def print_summary(result: object, outputs: Sequence[Path], source: str) -> None:
 def _cmd_analyze(args: argparse.Namespace) -> int:
     from .pipeline import AnalyzeOptions, analyze_file, write_result
 
-    options = AnalyzeOptions(
-        layer=args.layer,
-        crs=args.crs,
-        out_crs=args.out_crs,
-        accuracy=args.accuracy,
-        id_field=args.id_field,
-        accuracy_field=args.accuracy_field,
-    )
+    options = AnalyzeOptions.from_args(args)
     output = Path(args.output) if args.output else Path(Path(args.input).stem + "_rutwise.gpkg")
     if output.suffix.lower() not in (".gpkg", ".geojson", ".json"):
         raise RutwiseError(

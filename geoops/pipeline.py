@@ -12,7 +12,7 @@ from __future__ import annotations
 import datetime as _dt
 import json
 import os
-from dataclasses import asdict, dataclass, field
+from dataclasses import asdict, dataclass, field, fields
 from pathlib import Path
 from typing import Any
 
@@ -90,6 +90,11 @@ class AnalyzeOptions:
     accuracy: float | None = None
     id_field: str | None = None
     accuracy_field: str | None = None
+
+    @classmethod
+    def from_args(cls, args: object) -> AnalyzeOptions:
+        """Options from parsed command-line arguments of the same names (missing ones None)."""
+        return cls(**{f.name: getattr(args, f.name, None) for f in fields(cls)})
 
     def __post_init__(self) -> None:
         if self.accuracy is not None and not (0 < self.accuracy < 1000):
