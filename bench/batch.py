@@ -28,10 +28,10 @@ from typing import Any
 
 import numpy as np
 import pyproj
-from distributed import Client, LocalCluster
+from distributed import Client
 from pyogrio.raw import read as raw_read
 
-from geoops.batch import find_inputs, run_batch
+from geoops.batch import find_inputs, local_cluster, run_batch
 from geoops.kinematics import simulate_steering
 from geoops.scenarios import CAR, mapped_lines, slalom
 
@@ -78,14 +78,7 @@ def write_layers(folder: Path, layers: int, passes: int, length_m: float) -> Non
 def timed_run(source: Path, outdir: Path, workers: int) -> dict[str, Any]:
     """One batch from scratch into ``outdir`` on a warmed LocalCluster of ``workers``."""
     with (
-        LocalCluster(
-            n_workers=workers,
-            threads_per_worker=1,
-            processes=True,
-            host="127.0.0.1",
-            dashboard_address=None,
-            scheduler_kwargs={"dashboard_address": "127.0.0.1:0"},
-        ) as cluster,
+        local_cluster(workers) as cluster,
         Client(cluster, set_as_default=False) as client,
     ):
         # every worker imports the engine before the clock starts

@@ -109,30 +109,16 @@ def _now() -> str:
 
 def _failure(name: str, source: str, key: str, exc: BaseException, seconds: float) -> Outcome:
     if isinstance(exc, RutwiseError):
-        return Outcome(
-            name, source, key, "failed", seconds, kind=exc.kind, reason=exc.message, hint=exc.hint
-        )
-    if isinstance(exc, OSError):
-        return Outcome(
-            name,
-            source,
-            key,
-            "failed",
-            seconds,
-            kind="os-error",
-            reason=f"{exc.strerror or type(exc).__name__}: {exc.filename or ''}".strip(),
-            hint="Check that the file exists and can be read.",
-        )
-    return Outcome(
-        name,
-        source,
-        key,
-        "failed",
-        seconds,
-        kind="internal-error",
-        reason=f"{type(exc).__name__}: {exc}",
-        hint="This is a bug in rutwise; report it with the input file.",
-    )
+        kind, reason, hint = exc.kind, exc.message, exc.hint
+    elif isinstance(exc, OSError):
+        kind = "os-error"
+        reason = f"{exc.strerror or type(exc).__name__}: {exc.filename or ''}".strip()
+        hint = "Check that the file exists and can be read."
+    else:
+        kind = "internal-error"
+        reason = f"{type(exc).__name__}: {exc}"
+        hint = "This is a bug in rutwise; report it with the input file."
+    return Outcome(name, source, key, "failed", seconds, kind=kind, reason=reason, hint=hint)
 
 
 @dataclass(frozen=True)
@@ -305,7 +291,7 @@ def connect(scheduler: str | None = None, workers: int | None = None) -> tuple[C
     LocalCluster on loopback with one single-threaded worker process per core (or
     ``workers``), dashboard off. Returns the client and the cluster to close (None when the
     cluster is someone else's)."""
-    from distributed import Client, LocalCluster
+    from distributed import Client
 
     address = scheduler or os.environ.get(SCHEDULER_ENV) or None
     if address:
@@ -316,17 +302,23 @@ def connect(scheduler: str | None = None, workers: int | None = None) -> tuple[C
                 f"Cannot reach the Dask scheduler at {address!r} ({exc}).",
                 "Start it (dask scheduler) or check --scheduler / RUTWISE_SCHEDULER.",
             ) from None
-    n = workers or os.cpu_count() or 1
-    # loopback only; no dashboard, and the scheduler's small HTTP endpoint on a free port
-    cluster = LocalCluster(
-        n_workers=n,
+    cluster = local_cluster(workers or os.cpu_count() or 1)
+    return Client(cluster, set_as_default=False), cluster
+
+
+def local_cluster(workers: int) -> Any:
+    """A LocalCluster of ``workers`` single-threaded processes on loopback, dashboard off (the
+    scheduler's small HTTP endpoint on a free port)."""
+    from distributed import LocalCluster
+
+    return LocalCluster(
+        n_workers=workers,
         threads_per_worker=1,
         processes=True,
         host="127.0.0.1",
         dashboard_address=None,
         scheduler_kwargs={"dashboard_address": "127.0.0.1:0"},
     )
-    return Client(cluster, set_as_default=False), cluster
 
 
 @dataclass

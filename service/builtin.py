@@ -13,6 +13,8 @@ import binascii
 import json
 import math
 import time
+from collections.abc import Callable
+from functools import partial
 from pathlib import Path
 from typing import Any
 from urllib.parse import urlsplit
@@ -219,9 +221,13 @@ def _in_service_words(exc: RutwiseError) -> RutwiseError:
     return exc
 
 
-def _run_analyze(inputs: dict[str, Any], ctx: RunContext) -> Manifest:
+def _in_service_terms(
+    run: Callable[[dict[str, Any], RunContext], Manifest], inputs: dict[str, Any], ctx: RunContext
+) -> Manifest:
+    """Run a process function so engine advice names the service's inputs, not CLI options.
+    Bound with functools.partial: process functions are pickled into the worker processes."""
     try:
-        return _analyze(inputs, ctx)
+        return run(inputs, ctx)
     except RutwiseError as exc:
         raise _in_service_words(exc) from None
 
@@ -365,7 +371,7 @@ ANALYZE = Process(
         "ruts": OutputSpec("Ruts", "The cleaned ruts with the pass and wheel each belongs to.",
                            _LAYER_OUTPUT_SCHEMA, (GEOJSON, GEOPACKAGE), GEOPACKAGE),
     },
-    run=_run_analyze,
+    run=partial(_in_service_terms, _analyze),
     check=_check_analyze,
 )
 
@@ -431,13 +437,6 @@ def _rut_lines_document(lines: Any) -> dict[str, Any]:
     return geojson_document(layer, meta)
 
 
-def _run_extract(inputs: dict[str, Any], ctx: RunContext) -> Manifest:
-    try:
-        return _extract(inputs, ctx)
-    except RutwiseError as exc:
-        raise _in_service_words(exc) from None
-
-
 def _extract(inputs: dict[str, Any], ctx: RunContext) -> Manifest:
     from geoops.raster import extract_ruts, write_rut_lines
 
@@ -500,7 +499,7 @@ EXTRACT_RUTS = Process(
             "and depth_class; GeoJSON in lon/lat WGS 84, the GeoPackage in the raster's CRS.",
             _LAYER_OUTPUT_SCHEMA, (GEOJSON, GEOPACKAGE), GEOPACKAGE),
     },
-    run=_run_extract,
+    run=partial(_in_service_terms, _extract),
     check=_check_extract,
 )
 
