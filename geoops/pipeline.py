@@ -28,6 +28,7 @@ from .curves import Array, as_linestrings
 from .errors import BadInput, CrsError
 from .frame import LocalFrame, build_frame, resolve_crs
 from .inference import DECIDE_AT, MAX_LOG_ODDS, PairResult
+from .integrity import file_sha256, with_layer_checksums
 from .io import InputLayer, OutputLayer, read_layer, write_geojson, write_geopackage
 from .pairing import choose_pairs
 from .passes import Leg, LegPass, assemble, split_into_legs
@@ -485,6 +486,7 @@ def _metadata(
         "version": __version__,
         "created_utc": _dt.datetime.now(_dt.UTC).replace(microsecond=0).isoformat(),
         "input": os.path.basename(layer.path),
+        "input_sha256": file_sha256(layer.path),
         "input_layer": layer.layer,
         "input_crs": crs.to_string(),
         "options": json.dumps({k: v for k, v in asdict(options).items() if v is not None}),
@@ -583,7 +585,7 @@ def write_result(
         )
     crs = _target_crs(result, out_crs, geojson)
     layers = result_layers(result, crs)
-    meta = dict(result.metadata, output_crs=crs.to_string())
+    meta = with_layer_checksums(dict(result.metadata, output_crs=crs.to_string()), layers)
     if geojson:
         ruts_path = target.with_name(target.stem + ".ruts" + target.suffix)
         return [write_geojson(target, layers[0], meta), write_geojson(ruts_path, layers[1], meta)]
