@@ -30,6 +30,7 @@ from .frame import LocalFrame, build_frame, resolve_crs
 from .inference import DECIDE_AT, MAX_LOG_ODDS, PairResult
 from .integrity import file_sha256, with_layer_checksums
 from .io import InputLayer, OutputLayer, read_layer, write_geojson, write_geopackage
+from .limits import add_length
 from .pairing import choose_pairs
 from .passes import Leg, LegPass, assemble, split_into_legs
 from .vehicles import suggest_class
@@ -373,8 +374,10 @@ def analyze_layer(layer: InputLayer, options: AnalyzeOptions = AnalyzeOptions())
     ruts: dict[int, CleanRut] = {}
     legs: list[Leg] = []
     bad: list[tuple[int, str]] = []
+    length_m = 0.0
     for k, parts in enumerate(layer.parts):
         local = [np.column_stack(frame.to_local(p[:, 0], p[:, 1])) for p in parts]
+        length_m = add_length(length_m, local)  # time and memory grow with length: bounded
         try:
             ruts[k] = clean_rut(local, accuracies[k])
         except BadInput as exc:

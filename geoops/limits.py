@@ -1,0 +1,148 @@
+"""Limits that keep reading and analysing an input bounded in time and memory.
+
+Each limit has a default in :data:`DEFAULTS` and can be changed with an environment variable
+``RUTWISE_<NAME>`` (e.g. ``RUTWISE_MAX_LAYER_KM=5000``), read when the check runs. The service
+has its own upload, feature and vertex limits (:mod:`service.settings`); these apply to every
+caller, the command line included. The checks here look at sizes only (zip directories, line
+lengths); they never read layers or compute anything heavy.
+"""
+
+from __future__ import annotations
+
+import os
+import zipfile
+from pathlib import Path, PurePosixPath, PureWindowsPath
+
+import numpy as np
+
+from .errors import BadInput, LimitExceeded, RutwiseError
+
+ENV_PREFIX = "RUTWISE_"
+
+#: default limits; the environment variable ``RUTWISE_<NAME upper case>`` overrides each
+DEFAULTS: dict[str, float] = {
+    # total uncompressed size of a zip archive's members, MB (a zipped Shapefile of a few
+    # million vertices is tens of MB; larger archives are zip bombs or not rut layers)
+    "zip_max_mb": 512.0,
+    # members of a zip archive (a Shapefile has 3 to 8 files)
+    "zip_max_members": 1000.0,
+    # total length of a layer's lines in the local metric frame, km (the throughput bench's
+    # largest layer holds 147 km; a line thousands of km long is a wrong CRS or a wrong file)
+    "max_layer_km": 1000.0,
+}
+
+#: what every limit message advises besides splitting the input
+_RAISE = "or raise the limit with the environment variable {var}."
+
+
+def limit(name: str) -> float:
+    """The limit ``name`` (a key of :data:`DEFAULTS`), from the environment when set there.
+
+    Examples
+    --------
+    >>> limit("zip_max_members")
+    1000.0
+    """
+    var = ENV_PREFIX + name.upper()
+    text = os.environ.get(var, "").strip()
+    if not text:
+        return DEFAULTS[name]
+    try:
+        value = float(text)
+    except ValueError:
+        value = float("nan")
+    if not value > 0:
+        raise RutwiseError(f"The environment variable {var} is {text!r}, not a positive number.",
+                           f"Set {var} to a positive number or unset it.")
+    return value
+
+
+def _escapes(name: str) -> bool:
+    """Whether a zip member name is absolute or climbs out of the archive's folder.
+
+    Examples
+    --------
+    >>> [_escapes(n) for n in ("ruts.shp", "a/ruts.shp", "../ruts.shp", "/etc/x", "C:\\\\x")]
+    [False, False, True, True, True]
+    """
+    for path in (PurePosixPath(name), PureWindowsPath(name)):
+        if path.is_absolute() or path.drive or path.root or ".." in path.parts:
+            return True
+    return False
+
+
+def is_zip(path: str | os.PathLike[str]) -> bool:
+    """Whether ``path`` is a local file that is (or claims to be, by name) a zip archive."""
+    p = Path(path)
+    if not p.is_file():
+        return False
+    if p.suffix.lower() == ".zip":
+        return True
+    with open(p, "rb") as fh:
+        return fh.read(4) in (b"PK\x03\x04", b"PK\x05\x06")
+
+
+def check_zip(path: str | os.PathLike[str]) -> None:
+    """Refuse a zip archive before GDAL reads it: not a zip, member names that point outside
+    the archive, too many members, or members that expand beyond ``zip_max_mb`` (a zip bomb).
+
+    Only the archive's directory is read; nothing is extracted.
+
+    Raises
+    ------
+    BadInput
+        Not a readable zip archive, or a member name that is absolute or contains ``..``.
+    LimitExceeded
+        More members or more uncompressed bytes than the limits allow.
+    """
+    name = os.fspath(path)
+    try:
+        with zipfile.ZipFile(name) as archive:
+            members = archive.infolist()
+    except (zipfile.BadZipFile, zipfile.LargeZipFile, OSError, ValueError) as exc:
+        raise BadInput(f"{name!r} is not a readable zip archive ({exc}).",
+                       "Zip the Shapefile's files (.shp, .shx, .dbf, .prj) again.") from None
+    most = limit("zip_max_members")
+    if len(members) > most:
+        raise LimitExceeded(
+            f"{name!r} holds {len(members)} files; the limit is {most:g}.",
+            "Zip only the layer's own files, " + _RAISE.format(var="RUTWISE_ZIP_MAX_MEMBERS"))
+    bad = [m.filename for m in members if _escapes(m.filename)]
+    if bad:
+        raise BadInput(
+            f"{name!r} holds {len(bad)} file name(s) pointing outside the archive's folder "
+            f"(absolute or with '..'), e.g. {bad[0]!r}.",
+            "Zip the layer's files again with plain relative names.")
+    expanded = sum(m.file_size for m in members)
+    cap = limit("zip_max_mb") * 2**20
+    if expanded > cap:
+        packed = sum(m.compress_size for m in members)
+        raise LimitExceeded(
+            f"{name!r} would expand from {packed / 2**20:.3g} MB to {expanded / 2**20:.6g} MB; "
+            f"the limit is {cap / 2**20:g} MB.",
+            "Give the layer unzipped or split it, " + _RAISE.format(var="RUTWISE_ZIP_MAX_MB"))
+
+
+def add_length(total_m: float, parts: list[np.ndarray]) -> float:
+    """``total_m`` plus the length of ``parts`` (``(n, 2)`` arrays in metres), refusing a layer
+    whose lines together are longer than ``max_layer_km``: the analysis resamples every line
+    at a fixed spacing, so its time and memory grow with length, not with vertices.
+
+    Examples
+    --------
+    >>> add_length(10.0, [np.array([[0.0, 0.0], [3.0, 4.0]])])
+    15.0
+    >>> add_length(0.0, [np.array([[0.0, 0.0], [3.0e6, 4.0e6]])])
+    Traceback (most recent call last):
+    ...
+    geoops.errors.LimitExceeded: The lines of the layer are at least 5000 km long...
+    """
+    total = total_m + sum(float(np.hypot(*np.diff(p, axis=0).T).sum()) for p in parts)
+    cap_km = limit("max_layer_km")
+    if not total <= cap_km * 1000.0:  # NaN counts as over
+        raise LimitExceeded(
+            f"The lines of the layer are at least {total / 1000:.6g} km long together; the "
+            f"limit is {cap_km:g} km. Lines that long suggest a wrong CRS or unit.",
+            "Check the layer's CRS; split a large survey into parts, "
+            + _RAISE.format(var="RUTWISE_MAX_LAYER_KM"))
+    return total
