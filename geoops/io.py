@@ -27,6 +27,7 @@ from pyogrio.raw import write as raw_write
 
 from .curves import Array
 from .errors import BadInput
+from .limits import check_zip, is_zip
 
 LINE_TYPES = {
     "LineString",
@@ -113,7 +114,7 @@ def choose_layer(path: str, layer: str | None) -> str:
     if layer is not None:
         if layer not in names:
             raise BadInput(
-                f"No layer named {layer!r} in {path!r}; it has: {', '.join(names) or 'none'}.",
+                f"No layer named {layer!r} in {path!r}; it has: {_names(names)}.",
                 "Pick one of those with --layer.",
             )
         return layer
@@ -135,13 +136,24 @@ def choose_layer(path: str, layer: str | None) -> str:
         if len(names) == 1:
             return names[0]  # let the reader say what is wrong with its geometries
         raise BadInput(
-            f"{path!r} has no layer of lines; its layers are: {', '.join(names) or 'none'}.",
+            f"{path!r} has no layer of lines; its layers are: {_names(names)}.",
             "Give a layer of LineString or MultiLineString features.",
         )
     raise BadInput(
-        f"{path!r} has several line layers: {', '.join(candidates)}.",
+        f"{path!r} has several line layers: {_names(candidates)}.",
         "Name the one to analyse with --layer.",
     )
+
+
+def _names(names: list[str]) -> str:
+    """Layer names for a message; names with line breaks, terminal escapes or commas quoted,
+    so that they cannot forge output or hide among the others.
+
+    >>> print(_names(["ruts", "two\\nlines", "a, b"]))
+    ruts, 'two\\nlines', 'a, b'
+    """
+    plain = [n if n.isprintable() and not set(n) & set(",'\"") else repr(n) for n in names]
+    return ", ".join(plain) or "none"
 
 
 def _short(exc: BaseException) -> str:
@@ -183,6 +195,8 @@ def read_layer(
             f"{path!r} is a folder, not a layer file.",
             "Give one layer file inside it.",
         )
+    if is_zip(path):
+        check_zip(path)  # before GDAL's /vsizip/ reads it: names, member count, expansion
     name = choose_layer(path, layer)
     try:
         # GPX and other drivers without a fast count report -1 unless forced
@@ -217,13 +231,11 @@ def read_layer(
     ids = _feature_ids(driver, fids, fields, id_field, n)
     geoms = shapely.from_wkb(wkb, on_invalid="ignore")
     parts, zs, skipped = _line_parts(geoms, ids)
-    if not any(parts):
-        present = geoms[~shapely.is_missing(geoms)]
-        kinds = sorted({_TYPE_NAMES.get(int(t), "other") for t in shapely.get_type_id(present)})
+    if not any(len(p) >= 2 and (p != p[0]).any() for f in parts for p in f):
         raise BadInput(
-            f"Layer {name!r} of {path!r} holds no line geometries"
-            + (f" (it holds: {', '.join(kinds)})." if kinds else "."),
-            "Give LineString or MultiLineString features (GPX: tracks or routes).",
+            f"Layer {name!r} of {path!r} {_why_unusable(geoms, parts, wkb)}.",
+            "Give LineString or MultiLineString features of at least two distinct vertices "
+            "(GPX: tracks or routes).",
         )
     warnings = [
         "While reading: " + str(n.message).split(" This warning will not")[0][:200]
@@ -233,6 +245,7 @@ def read_layer(
     if len(set(ids)) != len(ids):
         warnings.append("Feature ids are not unique; source_fids may name several features.")
     keep = [i for i, p in enumerate(parts) if p]
+    warnings.extend(_repeated_geometries(wkb, ids, keep))
     return InputLayer(
         path=path,
         layer=name,
@@ -245,6 +258,48 @@ def read_layer(
         skipped=skipped,
         warnings=warnings,
     )
+
+
+def _repeated_geometries(wkb: np.ndarray, ids: list[str], keep: list[int]) -> list[str]:
+    """A warning when features repeat an earlier feature's geometry byte for byte."""
+    first: dict[bytes, int] = {}
+    twins = []
+    for i in keep:
+        twin = first.setdefault(bytes(wkb[i]), i)
+        if twin != i:
+            twins.append((ids[i], ids[twin]))
+    if not twins:
+        return []
+    return [f"{len(twins)} feature(s) repeat the geometry of an earlier one (feature "
+            f"{twins[0][0]} repeats {twins[0][1]}); check for lines digitised twice."]
+
+
+def _why_unusable(geoms: np.ndarray, parts: list[list[Array]], wkb: np.ndarray) -> str:
+    """What the features of a layer without a usable line hold instead, counted by kind."""
+    missing = shapely.is_missing(geoms)
+    invalid = missing & np.array([w is not None for w in wkb], dtype=bool)
+    empty = ~missing & shapely.is_empty(geoms)
+    kinds = shapely.get_type_id(geoms)
+    lines = np.isin(kinds, (1, 2, 5))  # LineString, LinearRing, MultiLineString
+    if not (lines & ~empty).any() and not (missing | empty).any():
+        present = sorted({_TYPE_NAMES.get(int(t), "other") for t in kinds[~missing]})
+        return "holds no line geometries" + (f" (it holds: {', '.join(present)})"
+                                             if present else "")
+    finite = np.array([bool(f) for f in parts])
+    reasons = {
+        "without geometry": int((missing & ~invalid).sum()),
+        "with a geometry that cannot be built, such as a line of one vertex": int(invalid.sum()),
+        "with an empty geometry": int(empty.sum()),
+        "with a coordinate that is not a finite number (NaN or infinity)": int(
+            (~missing & ~empty & lines & ~finite).sum()
+        ),
+        "with a line of fewer than two distinct vertices": int((finite & lines).sum()),
+    }
+    other = ~missing & ~empty & ~lines
+    for t in sorted(set(kinds[other].tolist())):
+        reasons[_TYPE_NAMES.get(int(t), "other") + " (not a line)"] = int((kinds == t).sum())
+    text = ", ".join(f"{n} {what}" for what, n in reasons.items() if n)
+    return f"holds no usable line among its {len(geoms)} features ({text})"
 
 
 def _feature_ids(

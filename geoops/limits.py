@@ -102,6 +102,9 @@ def check_zip(path: str | os.PathLike[str]) -> None:
     except (zipfile.BadZipFile, zipfile.LargeZipFile, OSError, ValueError) as exc:
         raise BadInput(f"{name!r} is not a readable zip archive ({exc}).",
                        "Zip the Shapefile's files (.shp, .shx, .dbf, .prj) again.") from None
+    if not members:
+        raise BadInput(f"{name!r} is an empty zip archive.",
+                       "Zip the Shapefile's files (.shp, .shx, .dbf, .prj) into it.")
     most = limit("zip_max_members")
     if len(members) > most:
         raise LimitExceeded(
