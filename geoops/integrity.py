@@ -71,10 +71,13 @@ def _cached_digest(path: str, mtime_ns: int, size: int) -> str:
     return _file_digest(Path(path))
 
 
-def file_sha256(path: str | os.PathLike[str]) -> str:
+def file_sha256(path: str | os.PathLike[str], reuse: bool = True) -> str:
     """``input_sha256`` of a file or folder (module docstring); '' when ``path`` is not on
-    disk. Repeated calls on an unchanged file reuse the digest (work units of one layer)."""
+    disk. With ``reuse``, repeated calls on a file of unchanged size and modification time
+    reuse the digest (the work units of one layer); without, the bytes are always read."""
     target = Path(os.fspath(path))
+    if target.is_file() and not reuse:
+        return _file_digest(target)
     if target.is_file():
         stat = target.stat()
         return _cached_digest(str(target.resolve()), stat.st_mtime_ns, stat.st_size)

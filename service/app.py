@@ -15,9 +15,11 @@ from fastapi.middleware.cors import CORSMiddleware
 
 import geoops
 
+from .headers import SecurityHeaders
 from .jobs import JobStore
 from .problems import install_handlers
 from .processes import ProcessRegistry, load_registry
+from .ratelimit import RateLimiter
 from .routes import router
 from .settings import Settings, load_settings
 from .worker import Runner
@@ -29,12 +31,13 @@ EXPOSED_HEADERS = ["Location", "Preference-Applied", "Link", "Content-Crs"]
 
 @dataclass
 class Service:
-    """What the routes share: settings, the store, the processes and (once started) the
-    runner."""
+    """What the routes share: settings, the store, the processes, the rate limit and (once
+    started) the runner."""
 
     settings: Settings
     store: JobStore
     registry: ProcessRegistry
+    limiter: RateLimiter
     runner: Runner | None = None
 
 
@@ -42,7 +45,8 @@ def create_app(settings: Settings | None = None, registry: ProcessRegistry | Non
                ) -> FastAPI:
     """The FastAPI application for ``settings`` (default: from the environment)."""
     settings = settings or load_settings()
-    service = Service(settings, JobStore(settings.data_dir), registry or load_registry())
+    service = Service(settings, JobStore(settings.data_dir), registry or load_registry(),
+                      RateLimiter(settings.rate_per_s, settings.rate_burst))
 
     @asynccontextmanager
     async def lifespan(_app: FastAPI) -> AsyncIterator[None]:
@@ -76,6 +80,7 @@ def create_app(settings: Settings | None = None, registry: ProcessRegistry | Non
             allow_headers=["Authorization", "Content-Type", "Prefer", "Accept"],
             expose_headers=EXPOSED_HEADERS,
         )
+    app.add_middleware(SecurityHeaders, hsts_max_age_s=settings.hsts_max_age_s)
     app.include_router(router)
     return app
 

@@ -24,13 +24,14 @@ import pyproj
 import shapely
 
 from geoops.errors import LimitExceeded, RutwiseError
+from geoops.integrity import bytes_sha256, file_sha256, with_layer_checksums
 from geoops.io import InputLayer, OutputLayer, geojson_document, read_layer, write_geopackage
 from geoops.kinematics import Vehicle, simulate_steering
 from geoops.pipeline import CAUTION, AnalyzeOptions, analyze_layer, result_layers, write_result
 from geoops.raster_defaults import DEPTH_LIMITS_M, MIN_LENGTH_M
 from geoops.scenarios import PRESETS, circle, mapped_lines, s_curve, slalom, straight
 
-from .jobs import is_id, write_atomic, write_json
+from .jobs import is_id, json_bytes, write_atomic, write_json
 from .processes import (
     FEATURE_COLLECTION_SCHEMA,
     GEOJSON,
@@ -158,6 +159,23 @@ def _input_file(ref: dict[str, Any], ctx: RunContext, name: str = "input") -> Pa
     return path
 
 
+def input_checksums(inputs: dict[str, Any], data_dir: Path) -> dict[str, str]:
+    """SHA-256 of each checked input, by input id: of the file's bytes for a file input (an
+    upload, or a base64 value as decoded), else of the input's JSON text as the job folder
+    stores it (:func:`service.jobs.json_bytes`; for an inline GeoJSON layer that is the
+    ``input.geojson`` the analysis reads)."""
+    sums = {}
+    for key, ref in inputs.items():
+        if isinstance(ref, dict) and "upload" in ref:
+            sums[key] = file_sha256(data_dir / "uploads" / ref["upload"] / Path(ref["file"]).name)
+        elif isinstance(ref, dict) and "base64" in ref:
+            sums[key] = bytes_sha256(base64.b64decode(ref["base64"]))
+        else:
+            value = ref["value"] if isinstance(ref, dict) and set(ref) == {"value"} else ref
+            sums[key] = bytes_sha256(json_bytes(value))
+    return sums
+
+
 def check_raster(path: Path) -> str:
     """The CRS of an uploaded raster that rut extraction can read (geoops.raster's checks)."""
     from geoops.raster import check_raster as engine_check
@@ -264,8 +282,9 @@ def _analyze(inputs: dict[str, Any], ctx: RunContext) -> Manifest:
     ctx.progress(15, "analysing the ruts")
     result = analyze_layer(layer, options)
     ctx.progress(70, "writing the results")
-    meta = dict(result.metadata, output_crs="EPSG:4326")
     passes, rut_layer = result_layers(result, WGS84)
+    meta = with_layer_checksums(dict(result.metadata, output_crs="EPSG:4326"),
+                                [passes, rut_layer])
     write_json(ctx.work_dir / "passes.geojson", geojson_document(passes, meta))
     write_json(ctx.work_dir / "ruts.geojson", geojson_document(rut_layer, meta))
     manifest: Manifest = {"passes": {GEOJSON: "passes.geojson"},
@@ -287,8 +306,8 @@ def _analyze_on_cluster(path: Path, options: AnalyzeOptions, ctx: RunContext) ->
     run_on_cluster(path, options, gpkg, ctx.scheduler)
     ctx.progress(70, "writing the results")
     layers, metadata, crs = read_result(gpkg)
-    meta = dict(metadata, output_crs="EPSG:4326")
     passes, rut_layer = (reproject(layer, crs, WGS84) for layer in layers)
+    meta = with_layer_checksums(dict(metadata, output_crs="EPSG:4326"), [passes, rut_layer])
     write_json(ctx.work_dir / "passes.geojson", geojson_document(passes, meta))
     write_json(ctx.work_dir / "ruts.geojson", geojson_document(rut_layer, meta))
     manifest: Manifest = {"passes": {GEOJSON: "passes.geojson"},
@@ -298,8 +317,9 @@ def _analyze_on_cluster(path: Path, options: AnalyzeOptions, ctx: RunContext) ->
         return manifest
     if options.out_crs:
         target = pyproj.CRS.from_user_input(options.out_crs)
-        write_geopackage(gpkg, [reproject(layer, crs, target) for layer in layers],
-                         target.to_wkt(), dict(metadata, output_crs=target.to_string()))
+        moved = [reproject(layer, crs, target) for layer in layers]
+        write_geopackage(gpkg, moved, target.to_wkt(), with_layer_checksums(
+            dict(metadata, output_crs=target.to_string()), moved))
     for formats in manifest.values():
         formats[GEOPACKAGE] = "result.gpkg"
     return manifest
@@ -433,8 +453,9 @@ def _rut_lines_document(lines: Any) -> dict[str, Any]:
                 "measure": "median depth below the local ground along the line"}),
             "lines_found": str(len(lines)), "warnings": json.dumps(list(lines.warnings)),
             "input_crs": pyproj.CRS.from_user_input(lines.crs).to_string(),
-            "output_crs": "EPSG:4326", "caution": CAUTION}
-    return geojson_document(layer, meta)
+            "output_crs": "EPSG:4326", "input_sha256": file_sha256(lines.source),
+            "caution": CAUTION}
+    return geojson_document(layer, with_layer_checksums(meta, [layer]))
 
 
 def _extract(inputs: dict[str, Any], ctx: RunContext) -> Manifest:

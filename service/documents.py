@@ -4,6 +4,9 @@ Status documents (OGC ``statusInfo``), process summaries and descriptions with t
 output plan of an execute request (which output, by value or by reference, in which media
 type), and the results responses of the standard's table: a JSON document, one raw output,
 ``multipart/related`` for several raw outputs, or 204 with ``Link`` headers for raw references.
+
+A result file is read only after its bytes matched the checksum the job recorded
+(``integrity.json``); a damaged file is never sent (500 ``result-damaged``).
 """
 
 from __future__ import annotations
@@ -15,6 +18,8 @@ from typing import Any
 
 from fastapi import Response
 from fastapi.responses import FileResponse, JSONResponse
+
+from geoops.integrity import file_sha256
 
 from .jobs import Job, JobStore
 from .problems import Problem
@@ -70,8 +75,10 @@ def process_description(process: Process, base: str) -> dict[str, Any]:
     return doc
 
 
-def status_info(job: Job, base: str) -> dict[str, Any]:
-    """The OGC statusInfo document of a job."""
+def status_info(job: Job, base: str, checksums: dict[str, Any] | None = None
+                ) -> dict[str, Any]:
+    """The OGC statusInfo document of a job; with ``checksums`` (a successful job's
+    :meth:`JobStore.checksums`) also ``input_sha256`` and ``result_sha256``."""
     doc: dict[str, Any] = {
         "jobID": job.id, "type": "process", "processID": job.process_id, "status": job.status,
         "message": job.message, "progress": job.progress, "created": job.created,
@@ -81,6 +88,9 @@ def status_info(job: Job, base: str) -> dict[str, Any]:
     if job.finished:
         doc["finished"] = job.finished
     doc["updated"] = job.updated
+    if checksums:
+        doc["input_sha256"] = checksums.get("input_sha256", {})
+        doc["result_sha256"] = checksums.get("result_sha256", {})
     href = f"{base}/jobs/{job.id}"
     links = [link(href, "self", "this job"), link(f"{base}/jobs", "up", "your jobs")]
     if job.status == "successful":
@@ -145,17 +155,37 @@ def _manifest(store: JobStore, job: Job) -> dict[str, dict[str, str]]:
     return data
 
 
+def checked_file(store: JobStore, job: Job, name: str) -> Path:
+    """The path of result file ``name`` of ``job`` once its bytes match the recorded
+    checksum (jobs from before checksums were recorded pass unchecked).
+
+    Raises
+    ------
+    Problem
+        500 ``result-damaged`` when the file is missing or differs from its checksum.
+    """
+    path = store.job_dir(job.id) / name
+    expected = (store.checksums(job) or {}).get("result_sha256", {}).get(name)
+    if expected is not None and file_sha256(path, reuse=False) != expected:
+        raise Problem(500, "result-damaged", "result damaged",
+                      f"The result file {name!r} of job {job.id} no longer matches its "
+                      "checksum, so it is not sent. Submit the job again, and tell the "
+                      "operator.")
+    return path
+
+
 def download_file(store: JobStore, job: Job, name: str) -> tuple[Path, str] | None:
-    """Path and media type of a result file of ``job`` named in its manifest, else None."""
+    """Path (checked, :func:`checked_file`) and media type of a result file of ``job`` named
+    in its manifest, else None."""
     for formats in _manifest(store, job).values():
         for media, file_name in formats.items():
             if file_name == name:
-                return store.job_dir(job.id) / file_name, media
+                return checked_file(store, job, file_name), media
     return None
 
 
-def _inline(path: Path, media: str) -> Any:
-    text = path.read_text(encoding="utf-8")
+def _inline(store: JobStore, job: Job, name: str, media: str) -> Any:
+    text = checked_file(store, job, name).read_text(encoding="utf-8")
     return text if media == TEXT else json.loads(text)
 
 
@@ -163,7 +193,7 @@ def results_response(store: JobStore, job: Job, plan: Plan, response: str, base:
                      headers: dict[str, str] | None = None) -> Response:
     """The results of a successful job as the request asked for them (OGC results table)."""
     manifest = _manifest(store, job)
-    folder = store.job_dir(job.id)
+    sums = (store.checksums(job) or {}).get("result_sha256", {})
     headers = dict(headers or {})
 
     def href(out_id: str, media: str) -> str:
@@ -173,10 +203,12 @@ def results_response(store: JobStore, job: Job, plan: Plan, response: str, base:
         doc: dict[str, Any] = {}
         for out_id, (mode, media) in plan.items():
             if mode == "value":
-                doc[out_id] = {"value": _inline(folder / manifest[out_id][media], media),
+                doc[out_id] = {"value": _inline(store, job, manifest[out_id][media], media),
                                "mediaType": media}
             else:
                 doc[out_id] = {"href": href(out_id, media), "type": media, "rel": out_id}
+                if manifest[out_id][media] in sums:
+                    doc[out_id]["sha256"] = sums[manifest[out_id][media]]
         return JSONResponse(doc, headers=headers)
     if all(mode == "reference" for mode, _ in plan.values()):
         links = [f'<{href(o, m)}>; rel="{OGC_REL}results"; type="{m}"; title="{o}"'
@@ -185,13 +217,14 @@ def results_response(store: JobStore, job: Job, plan: Plan, response: str, base:
         return Response(status_code=204, headers=headers)
     if len(plan) == 1:
         (out_id, (_, media)), = plan.items()
-        return FileResponse(folder / manifest[out_id][media], media_type=media, headers=headers)
+        return FileResponse(checked_file(store, job, manifest[out_id][media]),
+                            media_type=media, headers=headers)
     boundary = uuid.uuid4().hex
     chunks: list[bytes] = []
     for out_id, (mode, media) in plan.items():
         head = f"--{boundary}\r\nContent-ID: <{out_id}>\r\n"
         if mode == "value":
-            body = (folder / manifest[out_id][media]).read_bytes()
+            body = checked_file(store, job, manifest[out_id][media]).read_bytes()
             chunks.append(f"{head}Content-Type: {media}\r\n\r\n".encode() + body + b"\r\n")
         else:
             chunks.append(f"{head}Content-Type: {media}\r\nContent-Location: "

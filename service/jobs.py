@@ -3,14 +3,21 @@
 Layout under the data directory::
 
     rutwise.sqlite           jobs and uploads tables
-    jobs/<job id>/           request.json, result files, results.json (manifest), problem.json
+    jobs/<job id>/           request.json, result files, integrity.json (checksums),
+                             results.json (manifest, written last), problem.json
     uploads/<upload id>/     the uploaded file
 
 Every file is written atomically (temporary file in the same folder, then rename), so a reader
 never sees half a result. :meth:`JobStore.recover` marks jobs that a dead service left
-``accepted`` or ``running`` as ``failed`` with the reason. Jobs and uploads carry an ``owner``
-(a digest of the API key that created them, empty on an open service); every read is scoped
-to it. No HTTP here.
+``accepted`` or ``running`` as ``failed`` with the reason, and deletes what a killed service
+left half-made: temporary files, and upload folders that were never recorded. Jobs and
+uploads carry an ``owner`` (a digest of the API key that created them, empty on an open
+service); every read is scoped to it. No HTTP here.
+
+Test hook: when the environment variable ``RUTWISE_TEST_PAUSE_BEFORE_RENAME`` is set to
+``<seconds>:<name>[,<name>...]``, :func:`write_atomic` waits that long between writing the
+temporary file of a file with one of those names and renaming it, so that tests can kill the
+service in the middle of writing a result. Unset (always, outside tests), nothing changes.
 """
 
 from __future__ import annotations
@@ -22,6 +29,7 @@ import re
 import shutil
 import sqlite3
 import tempfile
+import time
 import uuid
 from collections.abc import Iterator
 from contextlib import contextmanager
@@ -81,6 +89,18 @@ def is_id(text: str) -> bool:
     return bool(_ID.match(text))
 
 
+PAUSE_VAR = "RUTWISE_TEST_PAUSE_BEFORE_RENAME"
+
+
+def _test_pause(name: str) -> None:
+    """The test hook of the module docstring (nothing unless ``PAUSE_VAR`` is set)."""
+    spec = os.environ.get(PAUSE_VAR)
+    if spec:
+        seconds, _, names = spec.partition(":")
+        if name in names.split(","):
+            time.sleep(float(seconds))
+
+
 def write_atomic(path: Path, data: bytes) -> None:
     """Write ``data`` to ``path`` through a temporary file in the same folder and a rename."""
     path.parent.mkdir(parents=True, exist_ok=True)
@@ -90,14 +110,20 @@ def write_atomic(path: Path, data: bytes) -> None:
             fh.write(data)
             fh.flush()
             os.fsync(fh.fileno())
+        _test_pause(path.name)
         os.replace(tmp, path)
     finally:
         if os.path.exists(tmp):
             os.unlink(tmp)
 
 
+def json_bytes(doc: Any) -> bytes:
+    """The bytes :func:`write_json` writes for ``doc`` (UTF-8, no spaces)."""
+    return json.dumps(doc, ensure_ascii=False, separators=(",", ":")).encode()
+
+
 def write_json(path: Path, doc: Any) -> None:
-    write_atomic(path, json.dumps(doc, ensure_ascii=False, separators=(",", ":")).encode())
+    write_atomic(path, json_bytes(doc))
 
 
 @dataclass(frozen=True)
@@ -269,8 +295,31 @@ class JobStore:
         """Delete the job's folder (request, results) once it is dismissed."""
         shutil.rmtree(self.job_dir(job_id), ignore_errors=True)
 
+    def checksums(self, job: Job) -> dict[str, Any] | None:
+        """``{"input_sha256": {input id: hex}, "result_sha256": {file name: hex}}`` of a
+        successful job (its ``integrity.json``), or None (other states, older jobs)."""
+        if job.status != "successful":
+            return None
+        try:
+            doc: dict[str, Any] = json.loads(
+                (self.job_dir(job.id) / "integrity.json").read_text(encoding="utf-8"))
+        except (OSError, ValueError):
+            return None
+        return doc
+
     def recover(self) -> int:
-        """Mark jobs left active by a service that stopped as failed; returns how many."""
+        """Mark jobs left active by a service that stopped as failed, and delete what it left
+        half-made (module docstring); returns how many jobs."""
+        with self._db() as db:
+            active = [r[0] for r in db.execute(
+                "SELECT id FROM jobs WHERE status IN ('accepted', 'running')").fetchall()]
+            uploads = {r[0] for r in db.execute("SELECT id FROM uploads").fetchall()}
+        for job_id in active:
+            for leftover in self.job_dir(job_id).glob(".*"):
+                leftover.unlink(missing_ok=True)
+        for folder in (self.data_dir / "uploads").iterdir():
+            if folder.name not in uploads:
+                shutil.rmtree(folder, ignore_errors=True)
         stamp = now()
         problem = {
             "type": "urn:rutwise:problem:service-stopped", "title": "job interrupted",

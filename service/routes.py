@@ -12,6 +12,8 @@ import hashlib
 import hmac
 import json
 import shutil
+from collections.abc import AsyncIterator
+from contextlib import asynccontextmanager
 from pathlib import Path
 from typing import Annotated, Any, Literal
 
@@ -37,6 +39,7 @@ from .problems import (
     not_found_process,
 )
 from .processes import RASTER_SUFFIXES, CheckContext, InputProblem
+from .ratelimit import retry_after
 
 router = APIRouter()
 _bearer = HTTPBearer(auto_error=False, description="API key, when the service requires one")
@@ -90,17 +93,31 @@ def _base(request: Request) -> str:
 def caller(request: Request,
            credentials: Annotated[HTTPAuthorizationCredentials | None, Depends(_bearer)] = None
            ) -> str:
-    """The owner key of the caller: a digest of its API key ('' on an open service)."""
-    keys = _service(request).settings.api_keys
+    """The owner key of the caller: a digest of its API key ('' on an open service).
+
+    With keys on, every call spends a token of the caller's rate limit (a wrong key spends
+    one of its client address), and a caller out of tokens gets 429.
+    """
+    svc = _service(request)
+    keys = svc.settings.api_keys
     if not keys:
         return ""
     token = credentials.credentials if credentials is not None else ""
-    if not any(hmac.compare_digest(token.encode(), key.encode()) for key in keys):
+    known = any(hmac.compare_digest(token.encode(), key.encode()) for key in keys)
+    owner = hashlib.sha256(token.encode()).hexdigest()[:32]
+    wait = svc.limiter.take(owner if known else "address:" + str(
+        request.client.host if request.client else ""))
+    if wait > 0:
+        raise Problem(429, "too-many-requests", "too many requests",
+                      f"This key sent more than {svc.settings.rate_burst} requests at once or "
+                      f"{svc.settings.rate_per_s:g} per second. Retry after the time in the "
+                      "Retry-After header.", headers={"Retry-After": retry_after(wait)})
+    if not known:
         raise Problem(401, "unauthorized", "API key needed",
                       "This service needs an API key: send 'Authorization: Bearer <key>'. Ask "
                       "the operator for a key.",
                       headers={"WWW-Authenticate": 'Bearer realm="rutwise"'})
-    return hashlib.sha256(token.encode()).hexdigest()[:32]
+    return owner
 
 
 def json_accepted(accept: Annotated[str | None, Header()] = None) -> None:
@@ -158,17 +175,31 @@ def describe_process(request: Request, process_id: str) -> JSONResponse:
 # --- execution --------------------------------------------------------------------------------
 
 
-async def _read_body(request: Request, limit: int) -> bytes:
+async def _read_body(request: Request, limit: int, timeout_s: float) -> bytes:
     declared = request.headers.get("content-length")
     if declared is not None and declared.isdigit() and int(declared) > limit:
         raise _too_large(int(declared), limit)
     chunks, size = [], 0
-    async for chunk in request.stream():
-        size += len(chunk)
-        if size > limit:
-            raise _too_large(size, limit)
-        chunks.append(chunk)
+    async with _body_deadline(timeout_s):
+        async for chunk in request.stream():
+            size += len(chunk)
+            if size > limit:
+                raise _too_large(size, limit)
+            chunks.append(chunk)
     return b"".join(chunks)
+
+
+@asynccontextmanager
+async def _body_deadline(timeout_s: float) -> AsyncIterator[None]:
+    """408 when the body inside takes longer than ``timeout_s`` to arrive."""
+    try:
+        async with asyncio.timeout(timeout_s):
+            yield
+    except TimeoutError:
+        raise Problem(408, "request-timeout", "request body too slow",
+                      f"The request body did not arrive within {timeout_s:g} s. Send it again "
+                      "over a faster connection, or in smaller parts.",
+                      headers={"Connection": "close"}) from None
 
 
 def _too_large(size: int, limit: int) -> Problem:
@@ -209,12 +240,14 @@ async def execute(request: Request, process_id: str, owner: Owner,
         raise Problem(415, "unsupported-media-type", "unsupported media type",
                       f"An execute request is JSON; got Content-Type {media or 'none'!r}. "
                       "Send 'Content-Type: application/json'.")
-    body = await _read_body(request, svc.settings.max_upload_bytes)
+    body = await _read_body(request, svc.settings.max_upload_bytes,
+                            svc.settings.body_timeout_s)
     try:
         doc = json.loads(body)
-    except (UnicodeDecodeError, json.JSONDecodeError) as exc:
+    except (ValueError, RecursionError) as exc:  # also 5000-digit numbers, deep nesting
+        why = "nested too deeply" if isinstance(exc, RecursionError) else str(exc)
         raise Problem(400, "malformed-json", "malformed JSON",
-                      f"The request body is not valid JSON ({exc}). Send an execute document "
+                      f"The request body is not valid JSON ({why}). Send an execute document "
                       "such as {\"inputs\": {...}}.") from None
     if not isinstance(doc, dict):
         raise Problem(400, "invalid-request", "invalid execute request",
@@ -254,9 +287,16 @@ async def execute(request: Request, process_id: str, owner: Owner,
         if wants_async:
             headers["Preference-Applied"] = "respond-async"
         return JSONResponse(documents.status_info(job, base), status_code=201, headers=headers)
-    await asyncio.shield(task)
-    done = store.get_job(job.id)
     headers = {"Link": f'<{job_url}>; rel="monitor"'}
+    try:
+        await asyncio.wait_for(asyncio.shield(task), svc.settings.sync_timeout_s)
+    except TimeoutError:
+        raise Problem(504, "sync-time-limit", "result not ready in time",
+                      f"The job did not finish within {svc.settings.sync_timeout_s:g} s, the "
+                      f"limit of a synchronous execution; it keeps running as job {job.id}. "
+                      "Poll its status (Location header), or send 'Prefer: respond-async'.",
+                      headers={**headers, "Location": job_url}, jobID=job.id) from None
+    done = store.get_job(job.id)
     if done is not None and done.status in ("accepted", "running"):
         raise Problem(503, "service-stopping", "service stopping",
                       "The service is shutting down and did not finish the job. Submit it "
@@ -344,8 +384,8 @@ def list_jobs(
         from urllib.parse import urlencode
 
         links.append(documents.link(f"{base}/jobs?{urlencode(params)}", "next", "next page"))
-    return JSONResponse({"jobs": [documents.status_info(j, base) for j in page],
-                         "links": links})
+    return JSONResponse({"jobs": [documents.status_info(j, base, svc.store.checksums(j))
+                                  for j in page], "links": links})
 
 
 def _own_job(request: Request, job_id: str, owner: str) -> Job:
@@ -358,7 +398,8 @@ def _own_job(request: Request, job_id: str, owner: str) -> Job:
 @router.get("/jobs/{job_id}", dependencies=[JsonOnly], summary="Status of a job")
 def job_status(request: Request, job_id: JOB_ID, owner: Owner) -> JSONResponse:
     job = _own_job(request, job_id, owner)
-    return JSONResponse(documents.status_info(job, _base(request)))
+    return JSONResponse(documents.status_info(job, _base(request),
+                                              _service(request).store.checksums(job)))
 
 
 @router.get("/jobs/{job_id}/results", summary="Results of a job")
@@ -467,11 +508,12 @@ async def upload(request: Request, owner: Owner,
         size = 0
         partial = folder / ".partial"
         with open(partial, "wb") as fh:
-            async for chunk in request.stream():
-                size += len(chunk)
-                if size > limit:
-                    raise _too_large(size, limit)
-                fh.write(chunk)
+            async with _body_deadline(svc.settings.body_timeout_s):
+                async for chunk in request.stream():
+                    size += len(chunk)
+                    if size > limit:
+                        raise _too_large(size, limit)
+                    fh.write(chunk)
         if size == 0:
             raise Problem(400, "empty-upload", "empty upload",
                           "The upload has no content. Send the file as the request body.")
@@ -511,20 +553,26 @@ def upload_info(request: Request, upload_id: Annotated[str, PathParam(max_length
 
 @router.get("/health", summary="Liveness and readiness")
 def health(request: Request) -> JSONResponse:
+    """Open to all; with API keys on it omits the job counts (they are on /metrics, which
+    needs a key)."""
     svc = _service(request)
-    counts = svc.store.count_by_status()
     cluster: dict[str, Any] = {"configured": bool(svc.settings.scheduler)}
     if svc.settings.scheduler:
         from .cluster import reachable
 
         cluster["reachable"] = reachable(svc.settings.scheduler) is None
-    return JSONResponse({"status": "ok", "version": geoops.__version__,
-                         "jobs_running": counts["running"], "jobs_queued": counts["accepted"],
-                         "workers": svc.settings.workers, "cluster": cluster})
+    doc: dict[str, Any] = {"status": "ok", "version": geoops.__version__}
+    if not svc.settings.api_keys:
+        counts = svc.store.count_by_status()
+        doc.update(jobs_running=counts["running"], jobs_queued=counts["accepted"])
+    doc.update(workers=svc.settings.workers, cluster=cluster)
+    return JSONResponse(doc)
 
 
 @router.get("/metrics", summary="Prometheus metrics", response_class=PlainTextResponse)
-def metrics(request: Request) -> PlainTextResponse:
+def metrics(request: Request, _owner: Owner) -> PlainTextResponse:
+    """Job counts and run times of all keys together (no job ids); needs a key when keys
+    are on."""
     store = _service(request).store
     lines = ["# HELP rutwise_jobs Jobs in the store by status.", "# TYPE rutwise_jobs gauge"]
     lines += [f'rutwise_jobs{{status="{k}"}} {v}' for k, v in store.count_by_status().items()]

@@ -49,6 +49,18 @@ class Settings:
         Address of a Dask scheduler (``tcp://host:port``) on which ``analyze`` jobs compute;
         empty means they compute in the service's own worker processes. The Dask workers
         must see ``data_dir`` under the same path.
+    rate_per_s, rate_burst
+        With API keys on, each key may send ``rate_burst`` requests at once and
+        ``rate_per_s`` per second after that (a token bucket); more get 429. Requests with
+        a wrong key are counted per client address. 0 turns the limit off.
+    body_timeout_s
+        An upload or execution request body that takes longer to arrive gets 408.
+    sync_timeout_s
+        A synchronous execution still running after this long is answered 504 with a link to
+        its job, which keeps running.
+    hsts_max_age_s
+        When above 0, responses carry ``Strict-Transport-Security`` with this max-age (set it
+        only behind HTTPS).
     """
 
     data_dir: Path = Path("data")
@@ -62,14 +74,22 @@ class Settings:
     job_timeout_s: float = 600.0
     workers: int = 2
     scheduler: str = ""
+    rate_per_s: float = 20.0
+    rate_burst: int = 60
+    body_timeout_s: float = 120.0
+    sync_timeout_s: float = 300.0
+    hsts_max_age_s: int = 0
 
     def __post_init__(self) -> None:
         if self.port < 0 or self.port > 65535:
             raise SettingsError(f"port must lie in 0..65535, got {self.port}.")
         for name in ("max_upload_mb", "max_features", "max_vertices", "job_timeout_s",
-                     "workers"):
+                     "workers", "body_timeout_s", "sync_timeout_s"):
             if getattr(self, name) <= 0:
                 raise SettingsError(f"{name} must be positive, got {getattr(self, name)}.")
+        for name in ("rate_per_s", "rate_burst", "hsts_max_age_s"):
+            if getattr(self, name) < 0:
+                raise SettingsError(f"{name} must be 0 or more, got {getattr(self, name)}.")
 
     @property
     def max_upload_bytes(self) -> int:

@@ -3,8 +3,10 @@
 A job's process is forked from a preloaded fork server (the engine is imported once), so
 starting one costs little, and it can be stopped: dismissing a job terminates its process, and
 a job running past ``job_timeout_s`` is terminated and reported failed. The worker process
-writes the result files and ``results.json`` (or ``problem.json``) into the job folder and
-reports progress to the store; this module then records the outcome. The event loop only
+writes the result files, their checksums (``integrity.json``) and last ``results.json`` (or
+``problem.json``) into the job folder and reports progress to the store; this module then
+records the outcome. A job counts as successful only when ``results.json`` exists, so a
+process killed while writing leaves a job that is reported failed. The event loop only
 waits on process sentinels; it never computes.
 """
 
@@ -24,6 +26,7 @@ from typing import Any
 import anyio.to_thread
 
 from geoops.errors import RutwiseError
+from geoops.integrity import file_sha256
 
 from .jobs import JobStore, write_json
 from .processes import InputProblem, Process, RunContext, RunFunction
@@ -79,6 +82,12 @@ def job_main(data_dir: str, job_id: str, run: RunFunction, inputs: dict[str, Any
             doc["detail"] = str(doc["detail"]).replace(f"{folder}/", "")
         write_json(work / "problem.json", doc)
         return
+    from .builtin import input_checksums
+
+    files = sorted({name for formats in manifest.values() for name in formats.values()})
+    write_json(work / "integrity.json", {
+        "input_sha256": input_checksums(inputs, store.data_dir),
+        "result_sha256": {name: file_sha256(work / name, reuse=False) for name in files}})
     write_json(work / "results.json", manifest)
 
 
