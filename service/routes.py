@@ -27,6 +27,7 @@ from fastapi.security import HTTPAuthorizationCredentials, HTTPBearer
 import geoops
 from geoops.errors import BadInput, LimitExceeded, RutwiseError
 from geoops.io import read_layer
+from geoops.limits import parse_json
 
 from . import documents
 from .jobs import STATUSES, Job, Upload, new_id, now, parse_time
@@ -243,7 +244,7 @@ async def execute(request: Request, process_id: str, owner: Owner,
     body = await _read_body(request, svc.settings.max_upload_bytes,
                             svc.settings.body_timeout_s)
     try:
-        doc = json.loads(body)
+        doc = parse_json(body)  # refuses deep nesting, which pickling a job would not survive
     except (ValueError, RecursionError) as exc:  # also 5000-digit numbers, deep nesting
         why = "nested too deeply" if isinstance(exc, RecursionError) else str(exc)
         raise Problem(400, "malformed-json", "malformed JSON",
