@@ -224,13 +224,23 @@ def windowed_curvature(tangents: Array, step: float, half: int) -> Array:
     return np.asarray((heading[2 * half :] - heading[: -2 * half]) / (2 * half * step))
 
 
+#: reach (metres) within which another stretch of the same line makes a nearest-vertex query
+#: ambiguous; covers the misfits the solver measures before it truncates them
+CROWD_RADIUS_M = 1.5
+#: vertices checked per query near such a place
+CROWD_K = 4
+
+
 @dataclass
 class NearestOnPolyline:
     """Nearest-point queries against one polyline, for many query points at once.
 
     The polyline should be densely sampled (uniform spacing much smaller than the distances of
-    interest along the line); each query checks the segments next to its nearest vertices, which
-    is exact for such lines.
+    interest along the line); each query checks the segments next to its nearest vertex, which
+    is exact where the line does not come back near itself. Where it does (a loop, a crossing:
+    vertices within :data:`CROWD_RADIUS_M` of another stretch of the line), the queries near
+    those vertices check the segments next to their four nearest vertices, so that a point by
+    one branch is never measured against the other.
 
     Examples
     --------
@@ -255,6 +265,22 @@ class NearestOnPolyline:
         den = self._abx**2 + self._aby**2
         self._seg_len = np.sqrt(den)
         self._inv_den = np.where(den > 0, 1.0 / np.where(den > 0, den, 1.0), 0.0)
+        self._crowd: np.ndarray | None = None
+
+    @property
+    def crowded(self) -> np.ndarray:
+        """Per vertex, whether another stretch of the line (more than three times
+        :data:`CROWD_RADIUS_M` away along it) passes within that radius plus a segment."""
+        if self._crowd is None:
+            step = float(self._seg_len.max(initial=0.0))
+            reach = CROWD_RADIUS_M + step
+            pairs = self._tree.query_pairs(reach, output_type="ndarray")
+            crowd = np.zeros(len(self.xy), dtype=bool)
+            if len(pairs):
+                far = np.abs(self._s[pairs[:, 0]] - self._s[pairs[:, 1]]) > 3.0 * reach
+                crowd[pairs[far].ravel()] = True
+            self._crowd = crowd
+        return self._crowd
 
     @property
     def length(self) -> float:
@@ -271,41 +297,65 @@ class NearestOnPolyline:
         dist, s, side, _ = self.nearest(pts, k)
         return dist, s, side
 
-    def nearest(self, pts: Array, k: int = 1) -> tuple[Array, Array, Array, Array]:
-        """Like :meth:`query`, plus the nearest points themselves, ``(m, 2)``.
-
-        The ``k`` nearest vertices are found with the k-d tree; the segments on either side of
-        each are projected onto, component-wise (no 3-D temporaries: this is the hot path).
-        """
+    def _closest(self, pts: Array, k: int) -> tuple[Array, Array, Array]:
+        """Squared distance, segment and fraction along it of the closest point (see the class
+        notes on crowded places)."""
         n = len(self.xy)
+        _, idx = self._tree.query(pts, k=min(k, n))
+        idx = np.asarray(idx).reshape(len(pts), -1)
+        d2, seg, t = self._project(pts, idx)
+        if k < CROWD_K and n > 2:
+            again = np.flatnonzero(self.crowded[idx[:, 0]])
+            if len(again):
+                _, idx2 = self._tree.query(pts[again], k=min(CROWD_K, n))
+                d2b, segb, tb = self._project(pts[again], np.asarray(idx2).reshape(len(again), -1))
+                d2[again], seg[again], t[again] = d2b, segb, tb
+        return d2, seg, t
+
+    def _project(self, pts: Array, idx: np.ndarray) -> tuple[Array, Array, Array]:
+        """Closest point on the segments on either side of the vertices ``idx`` ``(m, k)``, in
+        one gather over an ``(m, 2k)`` candidate array (the solver's hot path)."""
+        n = len(self.xy)
+        seg = np.concatenate([idx - 1, idx], axis=1)
+        np.minimum(seg, n - 2, out=seg)
+        np.maximum(seg, 0, out=seg)
+        px, py = pts[:, :1], pts[:, 1:2]
+        ax, ay = self._ax[seg], self._ay[seg]
+        abx, aby = self._abx[seg], self._aby[seg]
+        t = ((px - ax) * abx + (py - ay) * aby) * self._inv_den[seg]
+        np.minimum(t, 1.0, out=t)
+        np.maximum(t, 0.0, out=t)
+        dx = px - ax - t * abx
+        dy = py - ay - t * aby
+        d2 = dx * dx + dy * dy
+        pick = np.argmin(d2, axis=1)[:, None]
+        return (
+            np.take_along_axis(d2, pick, 1)[:, 0],
+            np.take_along_axis(seg, pick, 1)[:, 0],
+            np.take_along_axis(t, pick, 1)[:, 0],
+        )
+
+    def distance_and_position(self, pts: Array, k: int = 1) -> tuple[Array, Array]:
+        """Distance to the line and arc-length position of the nearest point (the lean form
+        of :meth:`query`)."""
+        if len(self.xy) < 2:
+            d, s, _ = self.query(pts, k)
+            return d, s
+        d2, seg, t = self._closest(pts, k)
+        return np.sqrt(d2), self._s[seg] + t * self._seg_len[seg]
+
+    def nearest(self, pts: Array, k: int = 1) -> tuple[Array, Array, Array, Array]:
+        """Like :meth:`query`, plus the nearest points themselves, ``(m, 2)``."""
         m = len(pts)
-        if n < 2:
+        if len(self.xy) < 2:
             d = np.hypot(*(pts - self.xy[0]).T)
             foot0 = np.broadcast_to(self.xy[0], pts.shape).copy()
             return d, np.zeros(m), np.ones(m), foot0
-        _, idx = self._tree.query(pts, k=min(k, n))
-        idx = np.asarray(idx).reshape(m, -1)
-        px, py = pts[:, 0], pts[:, 1]
-        best_d2 = np.full(m, np.inf)
-        best_seg = np.zeros(m, dtype=np.int64)
-        best_t = np.zeros(m)
-        for col in range(idx.shape[1]):
-            for shift in (-1, 0):
-                seg = np.clip(idx[:, col] + shift, 0, n - 2)
-                ax, ay = self._ax[seg], self._ay[seg]
-                abx, aby = self._abx[seg], self._aby[seg]
-                t = np.clip(((px - ax) * abx + (py - ay) * aby) * self._inv_den[seg], 0.0, 1.0)
-                dx = px - (ax + t * abx)
-                dy = py - (ay + t * aby)
-                d2 = dx * dx + dy * dy
-                better = d2 < best_d2
-                best_d2 = np.where(better, d2, best_d2)
-                best_seg = np.where(better, seg, best_seg)
-                best_t = np.where(better, t, best_t)
-        abx, aby = self._abx[best_seg], self._aby[best_seg]
-        ax, ay = self._ax[best_seg], self._ay[best_seg]
-        foot = np.column_stack([ax + best_t * abx, ay + best_t * aby])
-        s = self._s[best_seg] + best_t * self._seg_len[best_seg]
-        cross = abx * (py - ay) - aby * (px - ax)
+        d2, seg, t = self._closest(pts, k)
+        abx, aby = self._abx[seg], self._aby[seg]
+        ax, ay = self._ax[seg], self._ay[seg]
+        foot = np.column_stack([ax + t * abx, ay + t * aby])
+        s = self._s[seg] + t * self._seg_len[seg]
+        cross = abx * (pts[:, 1] - ay) - aby * (pts[:, 0] - ax)
         side = np.where(cross >= 0, 1.0, -1.0)
-        return np.sqrt(best_d2), s, side, foot
+        return np.sqrt(d2), s, side, foot

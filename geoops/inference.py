@@ -16,7 +16,6 @@ from collections.abc import Callable
 from dataclasses import dataclass, replace
 
 import numpy as np
-from scipy.optimize import minimize_scalar
 
 from .clean import CleanRut
 from .curves import Array
@@ -44,7 +43,11 @@ CONFIDENCE_TEMPERATURE = 1.0
 #: largest log-odds reported; keeps confidences finite and below 1 - 1e-13
 MAX_LOG_ODDS = 30.0
 
-_GRID = np.geomspace(WHEELBASE_MIN_M, WHEELBASE_MAX_M, 48)
+_GRID = np.geomspace(WHEELBASE_MIN_M, WHEELBASE_MAX_M, 24)
+#: rear samples used to place the wheelbase on the coarse grid (the refinement and every
+#: reported figure use all samples, up to FINE_SAMPLES)
+COARSE_SAMPLES = 32
+FINE_SAMPLES = 1500
 
 
 @dataclass(frozen=True)
@@ -160,7 +163,7 @@ class _Objective:
     def many(self, lengths: Array) -> tuple[Array, Array]:
         m = len(self.base)
         pts = self.points(lengths)
-        d, s, _ = self.target.index.query(pts)
+        d, s = self.target.index.distance_and_position(pts)
         t = self.target
         valid = (s > self.edge) & (s < t.length - self.edge) & _interp_bool(t.has_data, s, t.step)
         r = np.minimum(d * d, self.cap2)
@@ -171,10 +174,6 @@ class _Objective:
         mse = np.where(count >= self.need, mse, np.inf)
         return mse, count
 
-    def one(self, length: float) -> float:
-        # a large finite value where too few samples fit keeps the bounded search well-posed
-        return min(float(self.many(np.array([length]))[0][0]), 1e12)
-
 
 def _subsample(mask: np.ndarray, most: int) -> np.ndarray:
     idx = np.flatnonzero(mask)
@@ -183,27 +182,74 @@ def _subsample(mask: np.ndarray, most: int) -> np.ndarray:
     return idx
 
 
-def _fit(obj_coarse: _Objective, obj_fine: _Objective) -> tuple[float, float, int]:
-    mse, _ = obj_coarse.many(_GRID)
-    if not np.isfinite(mse).any():
-        return float("nan"), float("inf"), 0
-    i = int(np.nanargmin(mse))
-    lo = _GRID[max(i - 1, 0)]
-    hi = _GRID[min(i + 1, len(_GRID) - 1)]
-    res = minimize_scalar(
-        obj_fine.one, bounds=(lo, hi), method="bounded", options={"xatol": 1e-3 * _GRID[i]}
-    )
-    length = float(res.x)
-    best, count = obj_fine.many(np.array([length]))
-    grid_fine, _ = obj_fine.many(np.array([_GRID[i]]))
-    if grid_fine[0] < best[0]:
-        length, best = float(_GRID[i]), grid_fine
-    return length, float(best[0]), int(count[0])
+#: wheelbases tried per refinement round, in one batch each: the first between the coarse
+#: grid's neighbours of its best value, each next between the neighbours of the last best (the
+#: misfit's mean over valid samples jumps a little as samples enter or leave the target's
+#: reach, so a parabola alone, over the first round, can miss by a round's spacing)
+_REFINE_POINTS = (9, 5)
+#: relative bracket of a refit around a known wheelbase (after a lateral shift)
+_REFIT_SPAN = 1.15
+
+
+def _parabola_vertex(x: Array, y: Array, k: int) -> float | None:
+    """Abscissa of the minimum of the parabola through points k-1, k, k+1 (None if not convex)."""
+    if k <= 0 or k >= len(x) - 1 or not np.isfinite(y[k - 1 : k + 2]).all():
+        return None
+    x0, x1, x2 = x[k - 1 : k + 2]
+    y0, y1, y2 = y[k - 1 : k + 2]
+    den = (x0 - x1) * (x0 - x2) * (x1 - x2)
+    a = (x2 * (y1 - y0) + x1 * (y0 - y2) + x0 * (y2 - y1)) / den
+    b = (x2 * x2 * (y0 - y1) + x1 * x1 * (y2 - y0) + x0 * x0 * (y1 - y2)) / den
+    if a <= 0:
+        return None
+    return float(np.clip(-b / (2 * a), x0, x2))
+
+
+@dataclass
+class _Hypothesis:
+    """One hypothesis's objective on two sample sets: a few rear samples to place the
+    wheelbase on the coarse grid, and all of them (up to FINE_SAMPLES) to refine it and for
+    every figure that is reported or compared."""
+
+    coarse: _Objective
+    fine: _Objective
+
+    def set_shift(self, shift: float) -> None:
+        self.coarse.shift = self.fine.shift = shift
+
+
+def _fit(h: _Hypothesis, bracket: tuple[float, float] | None = None) -> tuple[float, float, int]:
+    """Best wheelbase of one hypothesis: a log grid on the coarse samples (unless a
+    ``bracket`` is given), then one batch of equally spaced wheelbases between the grid's
+    neighbours of its best value, a narrower round, and a parabola through the best three (a
+    few batched queries instead of a sequential search)."""
+    if bracket is None:
+        mse, _ = h.coarse.many(_GRID)
+        if not np.isfinite(mse).any():
+            return float("nan"), float("inf"), 0
+        i = int(np.nanargmin(mse))
+        bracket = (float(_GRID[max(i - 1, 0)]), float(_GRID[min(i + 1, len(_GRID) - 1)]))
+    best = (float("nan"), float("inf"), 0)
+    vertex = None
+    for points in _REFINE_POINTS:
+        lengths = np.linspace(bracket[0], bracket[1], points)
+        vals, counts = h.fine.many(lengths)
+        if not np.isfinite(vals).any():
+            break
+        k = int(np.argmin(vals))
+        if vals[k] < best[1]:
+            best = (float(lengths[k]), float(vals[k]), int(counts[k]))
+        bracket = (float(lengths[max(k - 1, 0)]), float(lengths[min(k + 1, points - 1)]))
+        vertex = _parabola_vertex(lengths, vals, k)
+    if vertex is not None:
+        val, count = h.fine.many(np.array([vertex]))
+        if val[0] < best[1]:
+            best = (vertex, float(val[0]), int(count[0]))
+    return best
 
 
 def _fit_with_shift(
-    coarse: _Objective,
-    fine: _Objective,
+    h: _Hypothesis,
     start: tuple[float, float, int],
     corr_m: float,
     step: float,
@@ -218,22 +264,23 @@ def _fit_with_shift(
     shift = 0.0
     best = (length, mse, n_used, 0.0)
     for _ in range(3):
-        valid, miss = fine.misses(best[0])
-        if valid.sum() < fine.need:
+        valid, miss = h.fine.misses(best[0])
+        if valid.sum() < h.fine.need:
             break
         shift = float(np.clip(shift + np.mean(miss[valid]), -SHIFT_MAX_M, SHIFT_MAX_M))
-        coarse.shift = fine.shift = shift
-        length2, mse2, n2 = _fit(coarse, fine)
+        h.set_shift(shift)
+        bracket = (best[0] / _REFIT_SPAN, best[0] * _REFIT_SPAN)
+        length2, mse2, n2 = _fit(h, bracket)
         if not np.isfinite(mse2):
             break
         best = (length2, mse2, n2, shift) if mse2 < best[1] else best
-    coarse.shift = fine.shift = best[3]
+    h.set_shift(best[3])
     if best[3] != 0.0:
         n_eff = max(best[2] * step / corr_m, 1.0)
-        raw0 = mse + length**2 * fine.tvar
+        raw0 = mse + length**2 * h.fine.tvar
         gain = n_eff * (mse - best[1]) / max(raw0, RESIDUAL_FLOOR_M**2)
         if gain < CHI2_95_1DOF:
-            coarse.shift = fine.shift = 0.0
+            h.set_shift(0.0)
             return length, mse, n_used, 0.0
     return best
 
@@ -260,29 +307,70 @@ def _correlation_length(miss: Array, spacing: float) -> float:
     return spacing * max(tau, 1.0)
 
 
+#: relative span and number of wheelbases of the interval's first, local grid; the global grid
+#: is evaluated only when the interval reaches past the local one
+_LOCAL_SPAN = 0.3
+_LOCAL_POINTS = 9
+_GLOBAL_GRID = np.geomspace(WHEELBASE_MIN_M, WHEELBASE_MAX_M, 40)
+
+
 def _interval(obj: _Objective, length: float, mse0: float, scale: float) -> tuple[float, float]:
-    """95 % profile interval of the wheelbase: where n_eff*(mse-mse0)/sigma^2 <= chi2(0.95, 1)."""
-    grid = np.unique(
-        np.concatenate(
-            [
-                np.geomspace(WHEELBASE_MIN_M, WHEELBASE_MAX_M, 60),
-                length * np.linspace(0.7, 1.3, 61),
-            ]
-        )
-    )
+    """95 % profile interval of the wheelbase: where n_eff*(mse-mse0)/sigma^2 <= chi2(0.95, 1).
+
+    The chi-square profile is evaluated on a local grid around the estimate; where it stays
+    inside the bound at a grid end, the global log grid is added; the crossing is then
+    refined on a few points between the last wheelbase inside and the first outside."""
+    grid = length * np.linspace(1 - _LOCAL_SPAN, 1 + _LOCAL_SPAN, _LOCAL_POINTS)
     grid = grid[(grid >= WHEELBASE_MIN_M) & (grid <= WHEELBASE_MAX_M)]
     mse, _ = obj.many(grid)
     chi = scale * (mse - mse0)
     inside = np.isfinite(chi) & (chi <= CHI2_95_1DOF)
+    if len(grid) == 0 or inside[0] or inside[-1]:
+        extra = _GLOBAL_GRID[(_GLOBAL_GRID < grid.min(initial=length))
+                             | (_GLOBAL_GRID > grid.max(initial=length))]
+        mse_x, _ = obj.many(extra)
+        grid = np.concatenate([grid, extra])
+        order = np.argsort(grid)
+        grid, chi = grid[order], np.concatenate([chi, scale * (mse_x - mse0)])[order]
+    low, high = _crossings(grid, chi, length)
+    # refine each crossing that lies between two grid points on a few wheelbases between them
+    refine = [np.linspace(a, b, 6)[1:-1] for a, b in _brackets(grid, chi, length)]
+    if refine:
+        fine = np.concatenate(refine)
+        mse_f, _ = obj.many(fine)
+        grid = np.concatenate([grid, fine])
+        chi = np.concatenate([chi, scale * (mse_f - mse0)])
+        order = np.argsort(grid)
+        low, high = _crossings(grid[order], chi[order], length)
+    return low, high
+
+
+def _inside_run(grid: Array, chi: Array, length: float) -> tuple[int, int]:
+    """First and last grid index of the run of wheelbases inside the bound around ``length``."""
+    inside = np.isfinite(chi) & (chi <= CHI2_95_1DOF)
     k = int(np.argmin(np.abs(grid - length)))
-    if not inside[k]:
-        inside[k] = True
+    inside[k] = True
     lo_k = k
     while lo_k > 0 and inside[lo_k - 1]:
         lo_k -= 1
     hi_k = k
     while hi_k < len(grid) - 1 and inside[hi_k + 1]:
         hi_k += 1
+    return lo_k, hi_k
+
+
+def _brackets(grid: Array, chi: Array, length: float) -> list[tuple[float, float]]:
+    lo_k, hi_k = _inside_run(grid, chi, length)
+    out = []
+    if lo_k > 0:
+        out.append((float(grid[lo_k - 1]), float(grid[lo_k])))
+    if hi_k < len(grid) - 1:
+        out.append((float(grid[hi_k]), float(grid[hi_k + 1])))
+    return out
+
+
+def _crossings(grid: Array, chi: Array, length: float) -> tuple[float, float]:
+    lo_k, hi_k = _inside_run(grid, chi, length)
 
     def edge(a: int, b: int) -> float:
         # linear interpolation of the chi-square crossing between grid points a (in) and b (out)
@@ -362,28 +450,27 @@ def solve_pair(first: CleanRut, second: CleanRut) -> PairResult:
     same_order = align > 0
 
     fits: list[HypothesisFit] = []
-    objs: dict[tuple[int, int], tuple[_Objective, _Objective]] = {}
+    objs: dict[tuple[int, int], _Hypothesis] = {}
     for rear_i in (0, 1):
         rear, target = tracks[rear_i], tracks[1 - rear_i]
-        coarse_idx = _subsample(overlaps[rear_i], 250)
-        fine_idx = _subsample(overlaps[rear_i], 1500)
+        samples = [_subsample(overlaps[rear_i], most) for most in (COARSE_SAMPLES, FINE_SAMPLES)]
         for along in (1, -1):
-            coarse = _Objective(rear, target, along, coarse_idx, cap)
-            fine = _Objective(rear, target, along, fine_idx, cap)
-            length, mse, n_used = _fit(coarse, fine)
+            hyp = _Hypothesis(*(_Objective(rear, target, along, idx, cap) for idx in samples))
+            length, mse, n_used = _fit(hyp)
             follows_rear_order = along > 0
             follows_first = follows_rear_order if rear_i == 0 else follows_rear_order == same_order
             fits.append(
                 HypothesisFit(rear_i, along, follows_first, length, mse, n_used, rear.tangent_var)
             )
-            objs[(rear_i, along)] = (coarse, fine)
+            objs[(rear_i, along)] = hyp
     finite = [f for f in fits if np.isfinite(f.mse)]
     if not finite:
         return empty
     best = min(finite, key=lambda f: f.mse)
     rear_track = tracks[best.rear]
     target_track = tracks[1 - best.rear]
-    best_coarse, best_obj = objs[(best.rear, best.along)]
+    best_hyp = objs[(best.rear, best.along)]
+    best_obj = best_hyp.fine
     stride = overlaps[best.rear].sum() / max(len(best_obj.base), 1)
     spacing = rear_track.step * max(stride, 1.0)
     # the hypotheses are ranked without a lateral shift (a shift lets a wrong hypothesis mimic
@@ -392,7 +479,7 @@ def solve_pair(first: CleanRut, second: CleanRut) -> PairResult:
     shift = 0.0
     if np.sqrt(max(best.mse, 0.0)) > SHIFT_TRY_AT * sigma_pair:
         length, mse, n_used, shift = _fit_with_shift(
-            best_coarse, best_obj, (best.wheelbase, best.mse, best.n_used), window, spacing
+            best_hyp, (best.wheelbase, best.mse, best.n_used), window, spacing
         )
     if shift != 0.0:
         best = replace(best, wheelbase=length, mse=mse, n_used=n_used, shift=shift)

@@ -15,13 +15,20 @@ import shapely
 
 from .clean import CleanRut
 from .curves import as_linestrings
-from .inference import PairResult, solve_pair
+from .inference import SHIFT_MAX_M, PairResult, solve_pair
 
 #: largest distance between a rear track and its front track, metres. Off-tracking is about
 #: L^2 / (2 R): 6 m wheelbase on a 8 m radius gives 2.25 m.  # common practice (SAE J695 terms)
 NEIGHBOUR_DISTANCE_M = 2.5
 #: share of the shorter rut that must lie within that distance of the other
 MIN_SHARED_FRACTION = 0.3
+#: front and rear tracks of one side coincide wherever the vehicle runs straight, up to the
+#: lateral shift of axles with different track widths (inference.SHIFT_MAX_M); a pair whose
+#: spacing stays above this (plus three sigma of the pair's noise) over nine tenths of their
+#: shared stretch is left/right or unrelated, and is not handed to the solver
+FRONT_REAR_NEAR_M = SHIFT_MAX_M + 0.1
+#: quantile of the spacing profile compared with FRONT_REAR_NEAR_M
+NEAR_QUANTILE = 10.0
 
 
 @dataclass(frozen=True)
@@ -33,10 +40,27 @@ class Pairing:
     unpaired: dict[int, str]
 
 
-def candidate_pairs(ruts: list[CleanRut]) -> list[tuple[int, int, float]]:
-    """Pairs ``(i, j, shared)``, ``i < j``, of ruts that run near each other; ``shared`` is the
-    fraction of the shorter rut within :data:`NEIGHBOUR_DISTANCE_M` of the other (at least
-    :data:`MIN_SHARED_FRACTION`)."""
+@dataclass(frozen=True)
+class Candidate:
+    """Two ruts ``i < j`` that run near each other: ``shared`` is the fraction of the shorter
+    within :data:`NEIGHBOUR_DISTANCE_M` of the other, ``near`` the :data:`NEAR_QUANTILE`
+    percentile of its distance to the other over that shared stretch (metres)."""
+
+    i: int
+    j: int
+    shared: float
+    near: float
+
+    def may_be_front_rear(self, ruts: list[CleanRut]) -> bool:
+        """Whether the spacing profile allows a front/rear pair: the tracks come together
+        somewhere (straight running), within the pair's noise."""
+        sigma = float(np.hypot(ruts[self.i].sigma, ruts[self.j].sigma))
+        return self.near <= FRONT_REAR_NEAR_M + 3.0 * sigma
+
+
+def candidate_pairs(ruts: list[CleanRut]) -> list[Candidate]:
+    """Pairs of ruts that run near each other (at least :data:`MIN_SHARED_FRACTION` of the
+    shorter within :data:`NEIGHBOUR_DISTANCE_M` of the other), with their spacing profile."""
     if len(ruts) < 2:
         return []
     lines = as_linestrings([r.xy for r in ruts])
@@ -47,9 +71,10 @@ def candidate_pairs(ruts: list[CleanRut]) -> list[tuple[int, int, float]]:
     for i, j in zip(left[keep].tolist(), right[keep].tolist(), strict=True):
         a, b = (ruts[i], ruts[j]) if ruts[i].length <= ruts[j].length else (ruts[j], ruts[i])
         d, _, _ = b.index.query(a.xy[:: max(len(a.xy) // 200, 1)])
-        shared = float(np.mean(d <= NEIGHBOUR_DISTANCE_M))
+        within = d <= NEIGHBOUR_DISTANCE_M
+        shared = float(np.mean(within))
         if shared >= MIN_SHARED_FRACTION:
-            out.append((i, j, shared))
+            out.append(Candidate(i, j, shared, float(np.percentile(d[within], NEAR_QUANTILE))))
     return out
 
 
@@ -60,15 +85,20 @@ def _rank(result: PairResult, shared: float) -> float:
 
 
 def choose_pairs(ruts: list[CleanRut], same_line: list[int] | None = None) -> Pairing:
-    """Pair ruts: judge every candidate pair, accept the best fitting first, each rut once.
+    """Pair ruts: judge every candidate pair whose spacing allows a front/rear pair, accept
+    the best fitting first, each rut once.
 
     ``same_line`` gives, per rut, the input line it was cut from (legs of one line, split at
     its reversals); legs of one line are never paired with each other.
     """
     cands = candidate_pairs(ruts)
     if same_line is not None:
-        cands = [c for c in cands if same_line[c[0]] != same_line[c[1]]]
-    judged = [(i, j, shared, solve_pair(ruts[i], ruts[j])) for i, j, shared in cands]
+        cands = [c for c in cands if same_line[c.i] != same_line[c.j]]
+    judged = [
+        (c.i, c.j, c.shared, solve_pair(ruts[c.i], ruts[c.j]))
+        for c in cands
+        if c.may_be_front_rear(ruts)
+    ]
     fitting = [c for c in judged if c[3].verdict != "not_a_pair"]
     fitting.sort(key=lambda c: _rank(c[3], c[2]))
     used: set[int] = set()
@@ -78,7 +108,7 @@ def choose_pairs(ruts: list[CleanRut], same_line: list[int] | None = None) -> Pa
             continue
         used.update((i, j))
         pairs.append((i, j, res))
-    had_neighbour = {k for i, j, _ in cands for k in (i, j)}
+    had_neighbour = {k for c in cands for k in (c.i, c.j)}
     unpaired = {
         k: ("not_a_pair" if k in had_neighbour else "no_partner")
         for k in range(len(ruts))

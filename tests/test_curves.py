@@ -1,0 +1,45 @@
+"""Geometry kernels of geoops.curves checked against shapely's exact distances."""
+
+from __future__ import annotations
+
+import numpy as np
+import shapely
+
+from geoops.curves import NearestOnPolyline, resample
+
+
+def _looped_line(step: float) -> np.ndarray:
+    """A path that loops and crosses itself twice (an epitrochoid), resampled uniformly."""
+    t = np.linspace(0.0, 2.0 * np.pi, 4000)
+    xy = np.column_stack([10 * np.cos(t) + 6 * np.cos(3 * t), 10 * np.sin(t) + 6 * np.sin(3 * t)])
+    pts, _ = resample(xy, step)
+    return pts
+
+
+def test_nearest_is_exact_where_the_line_crosses_itself():
+    line = _looped_line(0.3)
+    q = NearestOnPolyline(line)
+    assert q.crowded.any()  # the loops do come back near the line
+    rng = np.random.default_rng(5)
+    pts = line[rng.integers(0, len(line), 3000)] + rng.normal(0.0, 0.15, (3000, 2))
+    d, s = q.distance_and_position(pts)
+    ref = shapely.distance(shapely.points(pts), shapely.LineString(line))
+    # source: shapely 2.x distance (GEOS exact point-to-linestring distance)
+    assert np.max(np.abs(d - ref)) < 1e-9
+    # and the arc-length position names a point at that distance
+    ref_s = shapely.line_locate_point(shapely.LineString(line), shapely.points(pts))
+    at = shapely.line_interpolate_point(shapely.LineString(line), s)
+    assert np.allclose(shapely.distance(at, shapely.points(pts)), ref, atol=1e-9)
+    assert np.median(np.abs(s - ref_s)) < 1e-9
+
+
+def test_nearest_on_a_plain_curve_needs_no_extra_work():
+    t = np.linspace(0, 100, 400)
+    line = np.column_stack([t, 5 * np.sin(t / 10)])
+    q = NearestOnPolyline(line)
+    assert not q.crowded.any()
+    pts = line[::7] + 0.2
+    d, _ = q.distance_and_position(pts)
+    # source: shapely 2.x distance
+    ref = shapely.distance(shapely.points(pts), shapely.LineString(line))
+    assert np.max(np.abs(d - ref)) < 1e-9
