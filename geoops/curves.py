@@ -301,6 +301,8 @@ class NearestOnPolyline:
         """Squared distance, segment and fraction along it of the closest point (see the class
         notes on crowded places)."""
         n = len(self.xy)
+        if len(pts) == 0:
+            return np.empty(0), np.empty(0, dtype=np.int64), np.empty(0)
         _, idx = self._tree.query(pts, k=min(k, n))
         idx = np.asarray(idx).reshape(len(pts), -1)
         d2, seg, t = self._project(pts, idx)

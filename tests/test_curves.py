@@ -43,3 +43,9 @@ def test_nearest_on_a_plain_curve_needs_no_extra_work():
     # source: shapely 2.x distance
     ref = shapely.distance(shapely.points(pts), shapely.LineString(line))
     assert np.max(np.abs(d - ref)) < 1e-9
+
+
+def test_no_query_points_give_empty_answers():
+    q = NearestOnPolyline(np.column_stack([np.arange(5.0), np.zeros(5)]))
+    d, s = q.distance_and_position(np.empty((0, 2)))
+    assert d.shape == (0,) and s.shape == (0,)
