@@ -199,8 +199,10 @@ def drop_spikes(xy: Array, passes: int = 2) -> Array:
         prev_sharp = np.concatenate([[False], turn[:-1] > 1.2])
         next_sharp = np.concatenate([turn[1:] > 1.2, [False]])
         spike = sharp & (prev_sharp | next_sharp)
-        # keep the sharpest vertex of a pair of sharp neighbours only
-        spike &= ~np.concatenate([[False], spike[:-1]])
+        # of two neighbouring spikes drop only the sharper (both when equally sharp): the
+        # choice must not depend on the vertex order
+        beaten = np.concatenate([[False], spike[:-1] & (turn[:-1] > turn[1:] + 1e-9)])
+        spike &= ~(beaten | np.concatenate([spike[1:] & (turn[1:] > turn[:-1] + 1e-9), [False]]))
         if not spike.any():
             return xy
         keep = np.concatenate([[True], ~spike, [True]])
