@@ -83,3 +83,93 @@ def same_vehicle(
     if sp.spread > MAX_SPACING_SPREAD:
         return None
     return sp
+
+
+#: largest track width over wheelbase of a four-wheeled vehicle: ATVs and compact tractors
+#: reach about 0.8; two single-track vehicles riding side by side often exceed it
+#: (common practice)
+MAX_TRACK_OVER_WHEELBASE = 1.1
+#: largest difference of the two sides' wheelbase estimates, in standard errors
+MAX_WHEELBASE_Z = 3.0
+
+
+@dataclass(frozen=True)
+class Side:
+    """One judged front/rear pair as a candidate side of a four-wheeled vehicle: its rear
+    track, wheelbase estimate and 95 % interval (None when not estimable), and the decided
+    travel direction relative to the rear track's vertex order (None when not decided)."""
+
+    rear: CleanRut
+    wheelbase: float | None
+    low: float | None
+    high: float | None
+    follows_rear: bool | None
+
+
+def _wheelbase_z(a: Side, b: Side) -> float:
+    var = 0.0
+    for s in (a, b):
+        if s.wheelbase is None or s.low is None or s.high is None:
+            return 0.0
+        var += ((s.high - s.low) / 3.92) ** 2  # 95 % interval half-widths -> variances
+    assert a.wheelbase is not None and b.wheelbase is not None
+    return abs(a.wheelbase - b.wheelbase) / max(float(np.sqrt(var)), 1e-6)
+
+
+def join_cost(a: Side, b: Side) -> tuple[float, Spacing] | None:
+    """Cost of reading two sides as one vehicle (lower is likelier), with their spacing; None
+    when they cannot be one: spacing not parallel or not a track width, wheelbases that
+    differ, a track too wide for the wheelbase, or decided directions that disagree (a rigid
+    vehicle's sides travel together)."""
+    sp = same_vehicle(a.rear, b.rear, a.wheelbase, b.wheelbase)
+    if sp is None:
+        return None
+    if a.follows_rear is not None and b.follows_rear is not None:
+        if (a.follows_rear == b.follows_rear) != sp.same_order:
+            return None
+    known = [w for w in (a.wheelbase, b.wheelbase) if w is not None]
+    if known and sp.median > MAX_TRACK_OVER_WHEELBASE * float(np.mean(known)):
+        return None
+    z = _wheelbase_z(a, b)
+    if z > MAX_WHEELBASE_Z:
+        return None
+    return (z / MAX_WHEELBASE_Z) ** 2 + (sp.spread / MAX_SPACING_SPREAD) ** 2, sp
+
+
+def choose_axles(n: int, costs: dict[tuple[int, int], float]) -> list[tuple[int, int]]:
+    """Pairs of sides read as one vehicle: the most vehicles first (every side of a trail
+    driven by several four-wheeled vehicles finds its partner), then the least total cost.
+
+    Exact maximum-cardinality minimum-cost matching (networkx) on each connected group of
+    candidates; a group of one candidate is taken as it is.
+    """
+    if not costs:
+        return []
+    adj: dict[int, set[int]] = {}
+    for a, b in costs:
+        adj.setdefault(a, set()).add(b)
+        adj.setdefault(b, set()).add(a)
+    seen: set[int] = set()
+    out: list[tuple[int, int]] = []
+    for start in sorted(adj):
+        if start in seen:
+            continue
+        group, todo = set(), [start]
+        while todo:
+            k = todo.pop()
+            if k not in group:
+                group.add(k)
+                todo.extend(adj[k] - group)
+        seen |= group
+        edges = {e: c for e, c in costs.items() if e[0] in group}
+        if len(edges) == 1:
+            out.extend(edges)
+            continue
+        import networkx as nx  # only for crowded trails (about 0.2 s to import)
+
+        g = nx.Graph()
+        top = max(edges.values()) + 1.0
+        for (a, b), c in edges.items():
+            g.add_edge(a, b, weight=top - c)
+        out.extend(tuple(sorted(e)) for e in nx.max_weight_matching(g, maxcardinality=True))
+    return sorted(out)

@@ -21,7 +21,7 @@ import pyproj
 import shapely
 
 from . import __version__
-from .axles import TRACK_MAX_M, same_vehicle, spacing
+from .axles import TRACK_MAX_M, Side, choose_axles, join_cost, spacing
 from .clean import CleanRut, clean_rut
 from .crosscheck import steady_turn_wheelbase
 from .curves import Array, as_linestrings
@@ -229,37 +229,36 @@ def _leg_labels(lp: LegPass, legs: list[Leg]) -> dict[int, tuple[str, bool | Non
 def _axle_units(leg_passes: list[LegPass], legs: list[Leg]) -> list[tuple[int, ...]]:
     """Leg passes grouped into units: two side pairs of one four-wheeled vehicle, or one pair.
 
-    Only passes without reversals are joined for now; the closest-to-parallel pairs first.
+    Only passes without reversals are joined for now. Candidates are rear tracks within a
+    track width of each other that can be one axle (:func:`geoops.axles.join_cost`); the
+    choice is a matching over all of them (:func:`geoops.axles.choose_axles`), so that two
+    vehicles on one trail are not read as one vehicle plus two halves.
     """
     single = [i for i, lp in enumerate(leg_passes) if lp.reversals == 0]
-    cands = []
+    costs: dict[tuple[int, int], float] = {}
     if len(single) > 1:
+        sides = {i: _side(leg_passes[i], legs) for i in single}
         # only rear tracks within a track width of each other can be two sides of one axle
-        rears = as_linestrings([legs[leg_passes[i].rear_leg].track.xy for i in single])
+        rears = as_linestrings([sides[i].rear.xy for i in single])
         tree = shapely.STRtree(rears)
         left, right = tree.query(rears, predicate="dwithin", distance=TRACK_MAX_M)
         for ia, ib in zip(left.tolist(), right.tolist(), strict=True):
             if ia >= ib:
                 continue
             a, b = single[ia], single[ib]
-            la, lb = leg_passes[a], leg_passes[b]
-            sp = same_vehicle(
-                legs[la.rear_leg].track,
-                legs[lb.rear_leg].track,
-                la.result.wheelbase,
-                lb.result.wheelbase,
-            )
-            if sp is not None:
-                cands.append((sp.spread, a, b))
-    used: set[int] = set()
-    units: list[tuple[int, ...]] = []
-    for _, a, b in sorted(cands):
-        if a in used or b in used:
-            continue
-        used.update((a, b))
-        units.append((a, b))
+            joined = join_cost(sides[a], sides[b])
+            if joined is not None:
+                costs[(a, b)] = joined[0]
+    units: list[tuple[int, ...]] = list(choose_axles(len(leg_passes), costs))
+    used = {k for u in units for k in u}
     units.extend((i,) for i in range(len(leg_passes)) if i not in used)
     return sorted(units, key=lambda u: min(u))
+
+
+def _side(lp: LegPass, legs: list[Leg]) -> Side:
+    r = lp.result
+    follows = lp.motion_follows_rear if lp.verdict == "decided" else None
+    return Side(legs[lp.rear_leg].track, r.wheelbase, r.wheelbase_low, r.wheelbase_high, follows)
 
 
 def _combined_wheelbase(
@@ -288,6 +287,20 @@ def _side_log_odds(lp: LegPass) -> float:
     return lo if lp.motion_follows_rear else -lo
 
 
+#: log-odds (p = 0.7) from which two sides' opposite direction evidence makes a joined pass
+#: `mixed` rather than one vehicle's verdict
+SIDE_CONFLICT_LOG_ODDS = float(np.log(0.7 / 0.3))
+
+
+def _side_evidence(lp: LegPass) -> float:
+    """Log-odds, from the pair's own fit whatever its verdict, that travel follows the rear
+    leg's vertex order."""
+    r = lp.result
+    p = min(max(r.p_follows_first, 1e-13), 1 - 1e-13)
+    lo = float(np.log(p / (1 - p)))
+    return lo if lp.rear_leg == lp.pair[0] or r.same_order else -lo
+
+
 def _make_axle_pass(
     pass_id: int, a: LegPass, b: LegPass, legs: list[Leg], ids: list[str]
 ) -> tuple[PassRecord, dict[int, tuple[str, bool | None]]]:
@@ -299,8 +312,10 @@ def _make_axle_pass(
     lo = float(np.clip(lo, -MAX_LOG_ODDS, MAX_LOG_ODDS))
     p = 1.0 / (1.0 + np.exp(-lo))
     decided = max(p, 1 - p) >= DECIDE_AT
-    sides_decided = [x.motion_follows_rear for x in (a, b) if x.verdict == "decided"]
-    mixed = len(sides_decided) == 2 and (sides_decided[0] == sides_decided[1]) != sp.same_order
+    # the sides of one rigid vehicle travel together: when each side's own evidence points
+    # the other way, the four ruts hold two passes that the geometry cannot separate
+    ea, eb = _side_evidence(a), _side_evidence(b) * (1 if sp.same_order else -1)
+    mixed = ea * eb < 0 and min(abs(ea), abs(eb)) >= SIDE_CONFLICT_LOG_ODDS
     follows_a = (lo > 0) if decided and not mixed else None
     d, s, _, foot = rear_b.index.nearest(rear_a.xy)
     inside = (s > 2 * rear_b.step) & (s < rear_b.length - 2 * rear_b.step)
