@@ -105,7 +105,7 @@ def choose_layer(path: str, layer: str | None) -> str:
     """
     try:
         layers = pyogrio.list_layers(path)
-    except (pyogrio.errors.DataSourceError, OSError) as exc:
+    except (pyogrio.errors.DataSourceError, OSError, UnicodeDecodeError) as exc:
         raise BadInput(
             f"Cannot read {path!r} as a vector layer ({_short(exc)}).",
             "Give a GeoJSON, GeoPackage, GPX, FlatGeobuf or zipped Shapefile.",
@@ -128,6 +128,11 @@ def choose_layer(path: str, layer: str | None) -> str:
             count = info.get("features", 0)
         except pyogrio.errors.DataSourceError:
             continue
+        except UnicodeDecodeError as exc:  # found by fuzzing: field names that are not UTF-8
+            raise BadInput(
+                f"Cannot read layer {str(name)!r} of {path!r} ({_short(exc)}).",
+                "Save the layer with UTF-8 text (GeoJSON is always UTF-8).",
+            ) from None
         if count != 0:
             candidates.append(str(name))
     if len(candidates) == 1:
@@ -218,6 +223,7 @@ def read_layer(
         pyogrio.errors.FieldError,
         pyogrio.errors.GeometryError,
         OSError,
+        UnicodeDecodeError,  # names or text values that are not UTF-8 (found by fuzzing)
     ) as exc:
         raise BadInput(
             f"Cannot read layer {name!r} of {path!r} ({_short(exc)}).",

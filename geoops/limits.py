@@ -98,7 +98,8 @@ def check_zip(path: str | os.PathLike[str]) -> None:
     try:
         with zipfile.ZipFile(name) as archive:
             members = archive.infolist()
-    except (zipfile.BadZipFile, zipfile.LargeZipFile, OSError, ValueError) as exc:
+    except (zipfile.BadZipFile, zipfile.LargeZipFile, OSError, ValueError, EOFError,
+            NotImplementedError) as exc:  # e.g. 'zip file version 10.6' (found by fuzzing)
         raise BadInput(f"{name!r} is not a readable zip archive ({exc}).",
                        "Zip the Shapefile's files (.shp, .shx, .dbf, .prj) again.") from None
     if not members:

@@ -284,7 +284,7 @@ def is_raster(path: str | os.PathLike[str]) -> bool:
             _warnings.simplefilter("ignore")
             with rasterio.open(p) as ds:
                 return bool(ds.count >= 1 and ds.width > 0 and ds.height > 0)
-    except (rasterio.errors.RasterioError, OSError):
+    except (rasterio.errors.RasterioError, OSError, UnicodeDecodeError):
         return False
 
 
@@ -312,7 +312,8 @@ def _open(path: str) -> Any:
         with _warnings.catch_warnings():
             _warnings.simplefilter("ignore", rasterio.errors.NotGeoreferencedWarning)
             return rasterio.open(path)
-    except (rasterio.errors.RasterioError, OSError) as exc:
+    # UnicodeDecodeError: GDAL's message quoting bytes of a corrupt header (found by fuzzing)
+    except (rasterio.errors.RasterioError, OSError, UnicodeDecodeError) as exc:
         text = str(exc).strip().splitlines()[0][:200] if str(exc).strip() else type(exc).__name__
         raise BadInput(
             f"Cannot read {path!r} as a raster ({text}).",
