@@ -9,7 +9,7 @@ import pytest
 
 
 @pytest.mark.parametrize("name", ["service.settings", "service.builtin", "service.routes",
-                                  "service.cluster"])
+                                  "service.cluster", "service.ratelimit"])
 def test_docstring_examples(name: str) -> None:
     result = doctest.testmod(importlib.import_module(name))
     assert result.attempted > 0 and result.failed == 0

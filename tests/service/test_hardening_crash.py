@@ -112,7 +112,13 @@ def test_kills_leave_no_corrupt_job_or_file(server: LiveServer, tmp_path: Path) 
     committing = _async(base, "echo", {"message": "y"})
     for url, temp in ((writing, ".passes.geojson.*"), (committing, ".results.json.*")):
         folder = data / "jobs" / url.rsplit("/", 1)[1]
-        poll(lambda f=folder, t=temp: list(f.glob(t)), timeout=60)  # type: ignore[misc]
+
+        def held_or_ended(folder: Path = folder, temp: str = temp, url: str = url) -> Any:
+            return list(folder.glob(temp)) or httpx.get(url, timeout=10).json()["status"] in (
+                "successful", "failed")
+
+        held = poll(held_or_ended, timeout=60)
+        assert held is not True, httpx.get(url, timeout=10).json()  # it ended without pausing
     server.stop(signal.SIGKILL)
     _database_sound(data)
 
