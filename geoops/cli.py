@@ -82,6 +82,16 @@ def print_summary(result: object, outputs: Sequence[Path], source: str) -> None:
     print(f"  caution: {CAUTION}")
 
 
+def _positive_int(text: str) -> int:
+    try:
+        value = int(text)
+    except ValueError:
+        value = 0
+    if value < 1:
+        raise argparse.ArgumentTypeError(f"expected a whole number of at least 1, got {text!r}")
+    return value
+
+
 def _cmd_analyze(args: argparse.Namespace) -> int:
     from .pipeline import AnalyzeOptions, analyze_file, write_result
 
@@ -101,7 +111,10 @@ def _cmd_analyze(args: argparse.Namespace) -> int:
             f"The output {str(output)!r} would overwrite the input.",
             "Name another output file with -o.",
         )
-    result = analyze_file(args.input, options)
+    from .parallel import default_workers
+
+    workers = args.workers if args.workers is not None else default_workers()
+    result = analyze_file(args.input, options, workers=workers)
     with writing_to(output):
         outputs = write_result(result, output, out_crs=args.out_crs)
     if not args.quiet:
@@ -165,6 +178,14 @@ def build_parser() -> argparse.ArgumentParser:
     )
     a.add_argument(
         "--id-field", metavar="NAME", help="attribute whose values identify features in source_fids"
+    )
+    a.add_argument(
+        "--workers",
+        type=_positive_int,
+        default=None,
+        metavar="N",
+        help="processes for a large layer (default: one per core, up to 8; the result is the "
+        "same with any number)",
     )
     a.add_argument("-q", "--quiet", action="store_true", help="print nothing on success")
     a.set_defaults(func=_cmd_analyze)

@@ -9,6 +9,7 @@ files or write output.
 from __future__ import annotations
 
 from dataclasses import dataclass
+from typing import Any
 
 import numpy as np
 import shapely
@@ -16,6 +17,7 @@ import shapely
 from .clean import CleanRut
 from .curves import as_linestrings
 from .inference import SHIFT_MAX_M, PairResult, solve_pair
+from .parallel import pool_map
 
 #: largest distance between a rear track and its front track, metres. Off-tracking is about
 #: L^2 / (2 R): 6 m wheelbase on a 8 m radius gives 2.25 m.  # common practice (SAE J695 terms)
@@ -84,21 +86,27 @@ def _rank(result: PairResult, shared: float) -> float:
     return result.residual / max(result.tolerance, 1e-9) + 2.0 * (1.0 - shared)
 
 
-def choose_pairs(ruts: list[CleanRut], same_line: list[int] | None = None) -> Pairing:
+def _judge(state: dict[str, Any], pair: tuple[int, int]) -> PairResult:
+    ruts = state["ruts"]
+    return solve_pair(ruts[pair[0]], ruts[pair[1]])
+
+
+def choose_pairs(
+    ruts: list[CleanRut], same_line: list[int] | None = None, workers: int | None = None
+) -> Pairing:
     """Pair ruts: judge every candidate pair whose spacing allows a front/rear pair, accept
     the best fitting first, each rut once.
 
     ``same_line`` gives, per rut, the input line it was cut from (legs of one line, split at
-    its reversals); legs of one line are never paired with each other.
+    its reversals); legs of one line are never paired with each other. ``workers`` > 1
+    judges the candidates in that many forked processes (same result).
     """
     cands = candidate_pairs(ruts)
     if same_line is not None:
         cands = [c for c in cands if same_line[c.i] != same_line[c.j]]
-    judged = [
-        (c.i, c.j, c.shared, solve_pair(ruts[c.i], ruts[c.j]))
-        for c in cands
-        if c.may_be_front_rear(ruts)
-    ]
+    todo = [c for c in cands if c.may_be_front_rear(ruts)]
+    results = pool_map(_judge, [(c.i, c.j) for c in todo], {"ruts": ruts}, workers)
+    judged = [(c.i, c.j, c.shared, r) for c, r in zip(todo, results, strict=True)]
     fitting = [c for c in judged if c[3].verdict != "not_a_pair"]
     fitting.sort(key=lambda c: _rank(c[3], c[2]))
     used: set[int] = set()

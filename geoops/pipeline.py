@@ -32,6 +32,7 @@ from .integrity import file_sha256, with_layer_checksums
 from .io import InputLayer, OutputLayer, read_layer, write_geojson, write_geopackage
 from .limits import add_length
 from .pairing import choose_pairs
+from .parallel import pool_map
 from .passes import Leg, LegPass, assemble, split_into_legs
 from .vehicles import suggest_class
 
@@ -379,8 +380,23 @@ def _make_axle_pass(
     return record, labels
 
 
-def analyze_layer(layer: InputLayer, options: AnalyzeOptions = AnalyzeOptions()) -> AnalysisResult:
-    """Run the whole analysis on a layer already read from a file."""
+def _clean_one(state: dict[str, Any], k: int) -> tuple[CleanRut, list[Leg]] | str:
+    """Clean input feature ``k`` and cut it into legs, or say why it cannot be used."""
+    try:
+        rut = clean_rut(state["local"][k], state["accuracies"][k])
+    except BadInput as exc:
+        return exc.message
+    return rut, split_into_legs(k, rut, state["accuracies"][k])
+
+
+def analyze_layer(
+    layer: InputLayer, options: AnalyzeOptions = AnalyzeOptions(), workers: int | None = None
+) -> AnalysisResult:
+    """Run the whole analysis on a layer already read from a file.
+
+    ``workers`` > 1 spreads the cleaning and the pair judging over that many forked processes
+    (:mod:`geoops.parallel`); the result is the same as with one.
+    """
     crs = resolve_crs(layer.crs, options.crs)
     xy_all = layer.all_xy()
     frame, warnings = build_frame(xy_all[:, 0], xy_all[:, 1], crs)
@@ -390,16 +406,18 @@ def analyze_layer(layer: InputLayer, options: AnalyzeOptions = AnalyzeOptions())
     legs: list[Leg] = []
     bad: list[tuple[int, str]] = []
     length_m = 0.0
-    for k, parts in enumerate(layer.parts):
-        local = [np.column_stack(frame.to_local(p[:, 0], p[:, 1])) for p in parts]
-        length_m = add_length(length_m, local)  # time and memory grow with length: bounded
-        try:
-            ruts[k] = clean_rut(local, accuracies[k])
-        except BadInput as exc:
-            bad.append((k, exc.message))
+    local: list[list[np.ndarray]] = []
+    for parts in layer.parts:
+        local.append([np.column_stack(frame.to_local(p[:, 0], p[:, 1])) for p in parts])
+        length_m = add_length(length_m, local[-1])  # time and memory grow with length: bounded
+    state = {"local": local, "accuracies": accuracies}
+    for k, cleaned in enumerate(pool_map(_clean_one, range(len(local)), state, workers)):
+        if isinstance(cleaned, str):
+            bad.append((k, cleaned))
             continue
-        legs.extend(split_into_legs(k, ruts[k], accuracies[k]))
-    pairing = choose_pairs([leg.track for leg in legs], [leg.rut for leg in legs])
+        ruts[k] = cleaned[0]
+        legs.extend(cleaned[1])
+    pairing = choose_pairs([leg.track for leg in legs], [leg.rut for leg in legs], workers)
     leg_passes = assemble(pairing.pairs, legs)
     passes: list[PassRecord] = []
     group_first: dict[int, int] = {}
@@ -535,10 +553,13 @@ def read_input(path: str | os.PathLike[str], options: AnalyzeOptions = AnalyzeOp
 
 
 def analyze_file(
-    path: str | os.PathLike[str], options: AnalyzeOptions = AnalyzeOptions()
+    path: str | os.PathLike[str],
+    options: AnalyzeOptions = AnalyzeOptions(),
+    workers: int | None = None,
 ) -> AnalysisResult:
-    """Read a layer (or extract one from a raster) from ``path`` and analyse it."""
-    return analyze_layer(read_input(path, options), options)
+    """Read a layer (or extract one from a raster) from ``path`` and analyse it (``workers``
+    as for :func:`analyze_layer`)."""
+    return analyze_layer(read_input(path, options), options, workers)
 
 
 def _target_crs(result: AnalysisResult, out_crs: str | None, geojson: bool) -> pyproj.CRS:

@@ -120,3 +120,22 @@ def test_two_vehicles_side_by_side_in_opposite_directions_are_not_one_vehicle(tm
     joined = passes[passes["wheel_tracks"] == 4]
     assert (joined["verdict"] == "mixed").all()
     assert score.reconstructed == 2 or len(joined) == 1
+
+
+def test_workers_give_the_same_result(tmp_path, monkeypatch):
+    import geoops.parallel
+
+    monkeypatch.setattr(geoops.parallel, "MIN_ITEMS_PER_WORKER", 4)
+    scene = make_scene(23, 10, origin=ORIGIN)
+    src = str(tmp_path / "scene.gpkg")
+    write_scene(scene, src, CRS)
+    outs = []
+    for workers in (1, 2):
+        out = str(tmp_path / f"out_{workers}.gpkg")
+        write_result(analyze_file(src, workers=workers), out)
+        outs.append(out)
+    for layer in ("passes", "ruts"):
+        a, b = (pyogrio.read_dataframe(o, layer=layer) for o in outs)
+        assert len(a) > 5
+        assert a.drop(columns="geometry").equals(b.drop(columns="geometry"))
+        assert a.geometry.geom_equals_exact(b.geometry, 0.0).all()
