@@ -22,6 +22,9 @@ run: $(STAMP)
 	$(BIN)/rutwise analyze sample_layers/harrowmere_analyst.gpkg --layer ruts_digitised \
 		--id-field rut_ref -o $(OUT)/harrowmere_analyst.gpkg
 	@echo
+	$(BIN)/rutwise analyze sample_layers/harrowmere_drone_block.gpkg --id-field trace_ref \
+		-o $(OUT)/harrowmere_drone_block.gpkg
+	@echo
 	@echo "Open $(OUT)/*.gpkg in a desktop GIS: layers passes, ruts and run_metadata."
 
 ## make test: lint, type-check and run the whole test suite

@@ -3,7 +3,8 @@
 Scenario (invented; see sample_layers/README.md): Harrowmere Heath, a moorland reserve in
 the Southern Uplands. Ranger Ilse Brannock walks fresh wheel ruts near the north gate with an
 RTK rover; analyst Tomas Everleigh digitises ruts from drone imagery of the burn crossing in the
-national grid. The coordinates are real moorland; the people, the reserve and every rut are
+national grid; survey pilot Mairi Castlebeck traces the rut map of the busy track junction by
+the old fold from a drone survey. The coordinates are real moorland; the people, the reserve and every rut are
 invented. Run: ``python sample_layers/make_samples.py`` (or ``make samples``).
 """
 
@@ -26,6 +27,8 @@ SEED = 20261202
 GATE_LON, GATE_LAT = -3.0450, 55.4175
 #: burn crossing, 1.2 km to the south-east
 BURN_LON, BURN_LAT = -3.0300, 55.4090
+#: the heath's track junction by the old fold, surveyed by drone (2 km south-west of the gate)
+FOLD_LON, FOLD_LAT = -3.0700, 55.4030
 
 
 def _local_to(lon0: float, lat0: float, crs: str) -> pyproj.Transformer:
@@ -110,6 +113,25 @@ def analyst_layers(rng: np.random.Generator) -> dict[str, tuple[list, dict]]:
     }
 
 
+def drone_block() -> tuple[list, dict]:
+    """A rut map of the track junction by the old fold, traced from a drone survey in the
+    British National Grid: trails used by several vehicles, a crossing trail, and lines that
+    are no vehicle's (a fence, sheep paths, a drain, a lone track). From geoops.trails."""
+    from geoops.trails import make_scene
+
+    to_bng = _local_to(FOLD_LON, FOLD_LAT, "EPSG:27700")
+    scene = make_scene(SEED, 14, cell_m=130.0, origin=(-250.0, -250.0), distractors_per_trail=0.5)
+    geoms = []
+    for line in scene.lines:
+        x, y = to_bng.transform(line.xy[:, 0], line.xy[:, 1])
+        geoms.append(shapely.LineString(np.column_stack([x, y]).round(3)))
+    refs = np.array([f"FB-{k + 1:03d}" for k in range(len(geoms))], dtype=object)
+    return geoms, {
+        "trace_ref": refs,
+        "traced_by": np.array(["M. Castlebeck"] * len(geoms), dtype=object),
+    }
+
+
 def main() -> None:
     rng = np.random.default_rng(SEED)
     walk = ranger_walk(rng)
@@ -127,7 +149,20 @@ def main() -> None:
             crs="EPSG:27700",
             geometry_type="LineString",
         )
-    print(f"wrote {HERE / 'harrowmere_ranger_walk.geojson'} and {gpkg}")
+    block = HERE / "harrowmere_drone_block.gpkg"
+    block.unlink(missing_ok=True)
+    geoms, fields = drone_block()
+    write(
+        str(block),
+        shapely.to_wkb(np.array(geoms, dtype=object)),
+        list(fields.values()),
+        list(fields),
+        layer="rut_map",
+        driver="GPKG",
+        crs="EPSG:27700",
+        geometry_type="LineString",
+    )
+    print(f"wrote {HERE / 'harrowmere_ranger_walk.geojson'}, {gpkg} and {block}")
 
 
 if __name__ == "__main__":
