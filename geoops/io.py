@@ -128,10 +128,11 @@ def choose_layer(path: str, layer: str | None) -> str:
             count = info.get("features", 0)
         except pyogrio.errors.DataSourceError:
             continue
-        except UnicodeDecodeError as exc:  # found by fuzzing: field names that are not UTF-8
+        # found by fuzzing: field names that are not UTF-8, a layer missing from gpkg_contents
+        except (UnicodeDecodeError, pyogrio.errors.CRSError) as exc:
             raise BadInput(
                 f"Cannot read layer {str(name)!r} of {path!r} ({_short(exc)}).",
-                "Save the layer with UTF-8 text (GeoJSON is always UTF-8).",
+                "Check that the file is complete and valid, with UTF-8 text.",
             ) from None
         if count != 0:
             candidates.append(str(name))
@@ -222,6 +223,7 @@ def read_layer(
         pyogrio.errors.DataLayerError,
         pyogrio.errors.FieldError,
         pyogrio.errors.GeometryError,
+        pyogrio.errors.CRSError,
         OSError,
         UnicodeDecodeError,  # names or text values that are not UTF-8 (found by fuzzing)
     ) as exc:
