@@ -8,7 +8,7 @@ files or write output.
 
 from __future__ import annotations
 
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 from typing import Any
 
 import numpy as np
@@ -36,10 +36,14 @@ NEAR_QUANTILE = 10.0
 @dataclass(frozen=True)
 class Pairing:
     """Accepted pairs ``(i, j, result)`` (i, j rut indices; result on (i, j) in that order),
-    and a reason for each rut left unpaired."""
+    and a reason for each rut left unpaired (``overlapping_pass`` for the ruts in
+    :attr:`overlaps`)."""
 
     pairs: list[tuple[int, int, PairResult]]
     unpaired: dict[int, str]
+    #: per accepted pair (its index in ``pairs``), ruts left over that fit one of its ruts as
+    #: well: overlapping passes on one line that the geometry cannot separate
+    overlaps: dict[int, list[int]] = field(default_factory=dict)
 
 
 @dataclass(frozen=True)
@@ -116,11 +120,42 @@ def choose_pairs(
             continue
         used.update((i, j))
         pairs.append((i, j, res))
+    pairs.sort(key=lambda c: min(c[0], c[1]))
+    overlaps = _overlaps(pairs, fitting, used, same_line)
     had_neighbour = {k for c in cands for k in (c.i, c.j)}
     unpaired = {
         k: ("not_a_pair" if k in had_neighbour else "no_partner")
         for k in range(len(ruts))
         if k not in used
     }
-    pairs.sort(key=lambda c: min(c[0], c[1]))
-    return Pairing(pairs, unpaired)
+    for extra in overlaps.values():
+        unpaired.update((k, "overlapping_pass") for k in extra)
+    return Pairing(pairs, unpaired, overlaps)
+
+
+def _overlaps(
+    pairs: list[tuple[int, int, PairResult]],
+    fitting: list[tuple[int, int, float, PairResult]],
+    used: set[int],
+    same_line: list[int] | None,
+) -> dict[int, list[int]]:
+    """Ruts left unpaired that fit (wheelbase identifiable) a rut of an accepted pair: two
+    vehicles drove one line (a shared rear track, say, with two front tracks), and which of
+    them a rut belongs to is beyond the geometry. Legs of a line cut at its reversals are
+    left to the manoeuvre logic."""
+    lines: dict[int, int] = {}
+    if same_line is not None:
+        for k in same_line:
+            lines[k] = lines.get(k, 0) + 1
+    where = {r: n for n, (i, j, _) in enumerate(pairs) for r in (i, j)}
+    out: dict[int, list[int]] = {}
+    for i, j, _, res in fitting:
+        if res.wheelbase is None:
+            continue
+        for inside, extra in ((i, j), (j, i)):
+            if inside in where and extra not in used and (
+                same_line is None or lines[same_line[extra]] == 1
+            ):
+                out.setdefault(where[inside], []).append(extra)
+                used.add(extra)
+    return out

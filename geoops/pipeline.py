@@ -206,6 +206,25 @@ def _make_pass(pass_id: int, lp: LegPass, legs: list[Leg], ids: list[str]) -> Pa
     )
 
 
+def _mark_overlapping(
+    record: PassRecord,
+    labels: dict[int, tuple[str, bool | None]],
+    extra_ruts: list[int],
+    ids: list[str],
+) -> None:
+    """Make a pass `mixed`: more ruts fit it than one vehicle leaves (two vehicles drove one
+    line), so which rut belongs to which vehicle, and the direction, are beyond the geometry."""
+    record.verdict = "mixed"
+    record.confidence = 0.5
+    for k, (wheel, _) in list(labels.items()):
+        labels[k] = (wheel, None)
+    for k in extra_ruts:
+        labels[k] = ("unassigned", None)
+    ruts = sorted(labels)
+    record.rut_ids = ",".join(str(k + 1) for k in ruts)
+    record.source_fids = ",".join(ids[k] for k in ruts)
+
+
 def _estimates_disagree(record: PassRecord) -> bool:
     a, b = record.wheelbase_turn_m, record.wheelbase_m
     return a is not None and b is not None and abs(a - b) > 0.25 * b
@@ -423,6 +442,10 @@ def analyze_layer(
     group_first: dict[int, int] = {}
     # per input rut: pass group id, wheel, verdict, and whether motion follows its vertex order
     rut_info: dict[int, tuple[int, str, str, bool | None]] = {}
+    # legs that fit a rut of a pair as well as its partner does: overlapping passes
+    overlapping = {
+        pairing.pairs[n][:2]: extra for n, extra in pairing.overlaps.items()
+    }
     for n, unit in enumerate(_axle_units(leg_passes, legs), start=1):
         if len(unit) == 1:
             lp = leg_passes[unit[0]]
@@ -433,6 +456,9 @@ def analyze_layer(
             record, labels = _make_axle_pass(
                 n, leg_passes[unit[0]], leg_passes[unit[1]], legs, layer.ids
             )
+        extra = [k for u in unit for k in overlapping.get(leg_passes[u].pair, [])]
+        if extra:
+            _mark_overlapping(record, labels, [legs[k].rut for k in extra], layer.ids)
         record.pass_group = group_first.setdefault(lp.group, n)
         passes.append(record)
         if _estimates_disagree(record):

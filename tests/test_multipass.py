@@ -139,3 +139,28 @@ def test_workers_give_the_same_result(tmp_path, monkeypatch):
         assert len(a) > 5
         assert a.drop(columns="geometry").equals(b.drop(columns="geometry"))
         assert a.geometry.geom_equals_exact(b.geometry, 0.0).all()
+
+
+@pytest.mark.parametrize("seed", [0, 1, 2])
+def test_two_vehicles_on_one_line_come_out_mixed(tmp_path, seed):
+    """Two bicycles ride the same line, one each way: one rear track for both, two front
+    tracks (each one wheelbase along the rear tangent in its own direction, Finn 2004). Which
+    front belongs to which ride, and so the direction, is beyond the geometry."""
+    from geoops.scenarios import BICYCLE, mapped_lines
+    from geoops.trails import SceneLine, _trail, drive_wandering
+
+    rng = np.random.default_rng(seed)
+    trail = _trail(rng, 90.0)
+    rides = [drive_wandering(trail, BICYCLE, 0.0, 0.2, 35.0, 0.3, back) for back in (False, True)]
+    la, lb = (mapped_lines(r, 0.02, (0.3, 0.6), rng) for r in rides)
+    scene = Scene()
+    for wheel, xy in (("rear", la["rear"]), ("front", la["front"]), ("front", lb["front"])):
+        scene.lines.append(SceneLine(xy + np.array(ORIGIN), 0, wheel, "bicycle", None))
+    src, out = str(tmp_path / "one_line.gpkg"), str(tmp_path / "one_line_out.gpkg")
+    write_scene(scene, src, CRS)
+    write_result(analyze_file(src), out)
+    passes = pyogrio.read_dataframe(out, layer="passes")
+    ruts = pyogrio.read_dataframe(out, layer="ruts")
+    assert list(passes["verdict"]) == ["mixed"]
+    assert passes["rut_ids"].iloc[0] == "1,2,3"
+    assert set(ruts["verdict"]) == {"mixed"}
