@@ -6,6 +6,7 @@ knowledge of ruts or vehicles: that lives in :mod:`geoops.clean` and :mod:`geoop
 
 from __future__ import annotations
 
+import functools
 from dataclasses import dataclass, field
 
 import numpy as np
@@ -105,30 +106,35 @@ def savgol(y: Array, window: int, order: int, deriv: int = 0) -> Array:
     if window % 2 == 0 or window > n or window <= order:
         raise ValueError("window must be odd, at most the length and above the order")
     half = window // 2
-    pos = np.arange(-half, half + 1, dtype=np.float64)
-    vander = np.vander(pos, order + 1, increasing=True)  # (w, p+1)
-    pinv = np.linalg.pinv(vander)  # (p+1, w): polynomial coefficients from window values
-    fact = float(np.prod(np.arange(1, deriv + 1))) if deriv else 1.0
-    kernel = pinv[deriv] * fact  # value (or derivative) at the window centre
+    kernel, head, tail = _savgol_tables(window, order, deriv)
     out = np.empty_like(y, dtype=np.float64)
     # interior: a correlation with the kernel, computed as a sliding-window product
     windows = np.lib.stride_tricks.sliding_window_view(y, window, axis=0)  # (n-w+1, k, w)
     out[half : n - half] = windows @ kernel
-    # ends: evaluate the polynomial fitted to the first / last window
-    for block, at in ((y[:window], pos[:half]), (y[n - window :], pos[half + 1 :])):
-        coef = pinv @ block  # (p+1, k)
-        if deriv:
-            dcoef = coef.copy()
-            for _ in range(deriv):
-                dcoef = dcoef[1:] * np.arange(1, len(dcoef))[:, None]
-            vals = np.vander(at, len(dcoef), increasing=True) @ dcoef
-        else:
-            vals = np.vander(at, order + 1, increasing=True) @ coef
-        if at[0] < 0:
-            out[:half] = vals
-        else:
-            out[n - half :] = vals
+    # ends: the polynomial fitted to the first / last window, evaluated at the end samples
+    out[:half] = head @ y[:window]
+    out[n - half :] = tail @ y[n - window :]
     return out
+
+
+@functools.lru_cache(maxsize=256)
+def _savgol_tables(window: int, order: int, deriv: int) -> tuple[Array, Array, Array]:
+    """The centre kernel ``(w,)`` and the end matrices ``(w // 2, w)`` of a Savitzky-Golay
+    filter: each maps a window's values to fitted values (or derivatives) at its samples.
+    Cached: a layer's ruts share a handful of window sizes."""
+    half = window // 2
+    pos = np.arange(-half, half + 1, dtype=np.float64)
+    pinv = np.linalg.pinv(np.vander(pos, order + 1, increasing=True))  # (p+1, w)
+    # derivative of the polynomial with coefficients c: D @ c, D (p+1, p+1)
+    dmat = np.eye(order + 1)
+    for _ in range(deriv):
+        dmat = np.diag(np.arange(1.0, order + 1), 1) @ dmat
+    at_pos = np.vander(pos, order + 1, increasing=True) @ dmat @ pinv  # (w, w)
+    kernel = at_pos[half]
+    tables = (kernel, at_pos[:half], at_pos[half + 1 :])
+    for t in tables:
+        t.setflags(write=False)
+    return tables
 
 
 def _odd_window(points: int, n: int, order: int) -> int:

@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import numpy as np
+import pytest
 import shapely
 
 from geoops.curves import NearestOnPolyline, resample
@@ -49,3 +50,17 @@ def test_no_query_points_give_empty_answers():
     q = NearestOnPolyline(np.column_stack([np.arange(5.0), np.zeros(5)]))
     d, s = q.distance_and_position(np.empty((0, 2)))
     assert d.shape == (0,) and s.shape == (0,)
+
+
+@pytest.mark.parametrize(
+    ("window", "order", "deriv"), [(5, 2, 0), (7, 3, 1), (11, 3, 1), (21, 3, 2)]
+)
+def test_savgol_matches_scipy(window, order, deriv):
+    from scipy.signal import savgol_filter
+
+    from geoops.curves import savgol
+
+    y = np.random.default_rng(window).normal(size=(60, 2)).cumsum(axis=0)
+    ref = savgol_filter(y, window, order, deriv, axis=0, mode="interp")
+    # source: scipy.signal.savgol_filter (mode "interp": polynomial fits at the ends)
+    assert np.allclose(savgol(y, window, order, deriv), ref, atol=1e-10)
