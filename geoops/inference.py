@@ -113,24 +113,70 @@ def _interp_bool(mask: np.ndarray, s: Array, step: float) -> np.ndarray:
     return np.asarray(mask[i], dtype=bool)
 
 
-def _alignment(a: CleanRut, b: CleanRut) -> tuple[float, np.ndarray]:
-    """Mean tangent dot product of a's samples against b where they overlap, and a's mask of
-    samples whose nearest point on b is interior (the overlap)."""
+def _alignment(a: CleanRut, b: CleanRut) -> tuple[float, np.ndarray, Array]:
+    """Mean tangent dot product of a's samples against b where they overlap, a's mask of
+    samples whose nearest point on b is interior (the overlap), and each sample's distance
+    to b."""
     d, s, _ = b.index.query(a.xy)
     edge = 2.0 * b.step
     inside = (s > edge) & (s < b.length - edge) & a.has_data & _interp_bool(b.has_data, s, b.step)
     if not inside.any():
-        return 0.0, inside
+        return 0.0, inside, d
     j = np.clip(np.rint(s[inside] / b.step).astype(np.int64), 0, len(b.tangents) - 1)
     dots = np.einsum("ij,ij->i", a.tangents[inside], b.tangents[j])
-    return float(np.mean(dots)), inside
+    return float(np.mean(dots)), inside, d
+
+
+#: two tracks count as mapped as one line where, over a smoothing window, they stay closer
+#: than this share of the pair's noise sigma: two lines surveyed on their own sit about one
+#: sigma apart even where the wheels ran in one rut; a line drawn once for both sits at the
+#: few-millimetre level of resampling (a digitiser's merged stretch)
+MERGED_SHARE = 0.2
+#: margin (in smoothing windows) left out beyond each end of a merged stretch: where the lines
+#: part, the mapped line steps across to its own track, and smoothing spreads that jog over
+#: half a window on each side
+JUNCTION_MARGIN = 0.25
+
+
+def _merged_stretches(
+    track: CleanRut, dist: Array, overlap: np.ndarray, sigma: float
+) -> np.ndarray:
+    """Samples of ``track`` where it and the other track are one mapped line, widened by one
+    smoothing window on each side (the jog where they part spreads over a window).
+
+    Such stretches carry no direction evidence (a line predicts itself for any wheelbase
+    only at zero wheelbase) and would pull the wheelbase towards zero."""
+    w = track.window_pts | 1
+    if len(dist) < w:
+        return np.zeros(len(dist), dtype=bool)
+    box = np.ones(w) / w
+    rms = np.sqrt(np.convolve(np.where(overlap, dist * dist, np.inf), box, mode="same"))
+    one = rms < MERGED_SHARE * sigma
+    if not one.any():
+        return one
+    # the windowed test stops half a window short of a junction; widen back to it, plus the
+    # margin
+    reach = w + 2 * int(round(JUNCTION_MARGIN * w))
+    wide = np.convolve(one.astype(np.float64), np.ones(reach), mode="same") > 0.5
+    return np.asarray(wide, dtype=bool)
 
 
 class _Objective:
     """Mean truncated squared miss of the tangent-extended rear points against the target."""
 
-    def __init__(self, rear: CleanRut, target: CleanRut, along: int, idx: np.ndarray, cap: float):
+    def __init__(
+        self,
+        rear: CleanRut,
+        target: CleanRut,
+        along: int,
+        idx: np.ndarray,
+        cap: float,
+        usable: np.ndarray | None = None,
+    ):
         self.idx = idx
+        # target samples a prediction may land on: observed, and not where the two tracks are
+        # mapped as one line (see _merged_stretches)
+        self.usable = target.has_data if usable is None else usable
         self.base = rear.xy[idx]
         self.u = along * rear.tangents[idx]
         self.n = np.column_stack([-self.u[:, 1], self.u[:, 0]])  # left of the travel direction
@@ -145,6 +191,11 @@ class _Objective:
         self.need = max(8, int(0.25 * len(idx)))
         self.edge = 2.0 * target.step
 
+    def reaches(self, s: Array) -> np.ndarray:
+        """Whether predictions at target positions ``s`` count: interior and usable."""
+        t = self.target
+        return (s > self.edge) & (s < t.length - self.edge) & _interp_bool(self.usable, s, t.step)
+
     def points(self, lengths: Array) -> Array:
         """Predicted front points for each wheelbase in ``lengths``, ``(len(lengths) * m, 2)``."""
         base = self.base + self.shift * self.n
@@ -155,8 +206,7 @@ class _Objective:
         at one wheelbase, in rear-track order."""
         pts = self.points(np.array([length]))
         d, s, _, foot = self.target.index.nearest(pts)
-        t = self.target
-        valid = (s > self.edge) & (s < t.length - self.edge) & _interp_bool(t.has_data, s, t.step)
+        valid = self.reaches(s)
         valid &= d * d < self.cap2
         return valid, np.einsum("ij,ij->i", foot - pts, self.n)
 
@@ -169,8 +219,7 @@ class _Objective:
         m = len(self.base)
         pts = self.points(lengths)
         d, s, _, foot = self.target.index.nearest(pts)
-        t = self.target
-        valid = (s > self.edge) & (s < t.length - self.edge) & _interp_bool(t.has_data, s, t.step)
+        valid = self.reaches(s)
         n = np.tile(self.n, (len(lengths), 1))
         miss = np.einsum("ij,ij->i", foot - pts, n).reshape(len(lengths), m)
         valid = valid.reshape(len(lengths), m)
@@ -189,8 +238,7 @@ class _Objective:
         m = len(self.base)
         pts = self.points(lengths)
         d, s = self.target.index.distance_and_position(pts)
-        t = self.target
-        valid = (s > self.edge) & (s < t.length - self.edge) & _interp_bool(t.has_data, s, t.step)
+        valid = self.reaches(s)
         r = np.minimum(d * d, self.cap2)
         valid = valid.reshape(len(lengths), m)
         r = r.reshape(len(lengths), m)
@@ -475,12 +523,11 @@ def solve_pair(first: CleanRut, second: CleanRut) -> PairResult:
     PairResult
     """
     tracks = (first, second)
-    align, overlap0 = _alignment(first, second)
-    _, overlap1 = _alignment(second, first)
+    align, overlap0, dist0 = _alignment(first, second)
+    _, overlap1, dist1 = _alignment(second, first)
     sigma_pair = float(np.hypot(first.sigma, second.sigma))
     tol_base = max(3.0 * sigma_pair, 0.05)
     cap = 4.0 * tol_base
-    overlaps = (overlap0, overlap1)
     empty = PairResult(
         verdict="not_a_pair",
         reason="no_overlap",
@@ -501,6 +548,17 @@ def solve_pair(first: CleanRut, second: CleanRut) -> PairResult:
     if overlap0.sum() < 8 or overlap1.sum() < 8 or align == 0.0:
         return empty
     same_order = align > 0
+    merged = (
+        _merged_stretches(first, dist0, overlap0, sigma_pair),
+        _merged_stretches(second, dist1, overlap1, sigma_pair),
+    )
+    usable = (first.has_data & ~merged[0], second.has_data & ~merged[1])
+    overlaps = (overlap0 & ~merged[0], overlap1 & ~merged[1])
+    if overlaps[0].sum() < 8 or overlaps[1].sum() < 8:
+        # one line drawn for both tracks: a pair, but nothing to measure
+        return replace(
+            empty, verdict="undetermined", reason="merged_tracks", same_order=same_order
+        )
 
     fits: list[HypothesisFit] = []
     objs: dict[tuple[int, int], _Hypothesis] = {}
@@ -508,7 +566,9 @@ def solve_pair(first: CleanRut, second: CleanRut) -> PairResult:
         rear, target = tracks[rear_i], tracks[1 - rear_i]
         samples = [_subsample(overlaps[rear_i], most) for most in (COARSE_SAMPLES, FINE_SAMPLES)]
         for along in (1, -1):
-            hyp = _Hypothesis(*(_Objective(rear, target, along, idx, cap) for idx in samples))
+            hyp = _Hypothesis(
+                *(_Objective(rear, target, along, idx, cap, usable[1 - rear_i]) for idx in samples)
+            )
             length, mse, n_used = _fit(hyp)
             follows_rear_order = along > 0
             follows_first = follows_rear_order if rear_i == 0 else follows_rear_order == same_order

@@ -17,6 +17,7 @@ from collections.abc import Iterable
 
 import numpy as np
 import numpy.typing as npt
+import shapely
 from scipy.ndimage import gaussian_filter1d
 
 from geoops.kinematics import KinematicsInputError, SimulatedPass, Vehicle
@@ -35,6 +36,7 @@ __all__ = [
     "correlated_noise",
     "fragment",
     "mapped_lines",
+    "merged_lines",
     "random_smooth",
     "s_curve",
     "single_turn",
@@ -373,6 +375,70 @@ def mapped_lines(
         if rng.random() < reverse_prob:
             line = line[::-1]
         out[name] = np.ascontiguousarray(line)
+    return out
+
+
+def merged_lines(
+    sim: SimulatedPass,
+    rear: str,
+    front: str,
+    noise_m: float,
+    spacing_m: float | tuple[float, float],
+    rng: np.random.Generator,
+    merge_m: float = 0.04,
+    reverse_prob: float = 0.5,
+) -> dict[str, FloatArray]:
+    """Map a front and a rear wheel path as a digitiser does where the two run together.
+
+    Both paths are mapped as in :func:`mapped_lines` (vertex spacing, white noise of
+    ``noise_m``), but wherever the front path runs within ``merge_m`` of the rear path, the
+    map shows one line for both: the front line takes the rear line's vertices over that
+    stretch, so the two lines are identical there, noise included. Where the paths part, the
+    front line steps across to its own vertices: a small jog of about ``merge_m`` plus noise.
+    Each line's vertex order is then reversed with probability ``reverse_prob``.
+
+    Returns
+    -------
+    dict of str to (k, 2) float arrays
+        ``{rear: ..., front: ...}``.
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> from geoops.kinematics import simulate_steering
+    >>> sim = simulate_steering(BICYCLE, np.zeros(500), 0.02)  # 10 m straight
+    >>> lines = merged_lines(sim, "rear", "front", 0.01, 0.5, np.random.default_rng(0),
+    ...                      reverse_prob=0.0)
+    >>> # the front line shares the rear line's vertices from the front wheel's start on,
+    >>> # then runs on alone over the last wheelbase
+    >>> shared = (lines["front"][:, None, :] == lines["rear"][None, :, :]).all(axis=2).any(axis=1)
+    >>> int(shared.sum()), len(lines["front"]) - int(shared.sum())
+    (18, 3)
+    """
+    lines = mapped_lines(sim, 0.0, spacing_m, rng, reverse_prob=0.0, which=[rear, front])
+    clean_rear, clean_front = lines[rear], lines[front]
+    rear_path = shapely.LineString(sim.wheels()[rear])
+    together = shapely.distance(shapely.points(clean_front), rear_path) < merge_m
+    noisy_rear = clean_rear + rng.normal(0.0, noise_m, size=clean_rear.shape)
+    noisy_front = clean_front + rng.normal(0.0, noise_m, size=clean_front.shape)
+    # runs of front vertices that run together with the rear path
+    edges = np.diff(np.concatenate([[0], together.astype(np.int8), [0]]))
+    starts, stops = np.flatnonzero(edges == 1), np.flatnonzero(edges == -1)
+    tree_rear = shapely.STRtree(shapely.points(clean_rear))
+    pieces: list[FloatArray] = []
+    at = 0
+    for a, b in zip(starts, stops, strict=True):
+        pieces.append(noisy_front[at:a])
+        ra, rb = (int(tree_rear.nearest(shapely.Point(clean_front[k]))) for k in (a, b - 1))
+        if rb >= ra:
+            pieces.append(noisy_rear[ra : rb + 1])
+        at = int(b)
+    pieces.append(noisy_front[at:])
+    out = {rear: noisy_rear, front: np.concatenate(pieces)}
+    for name in out:
+        if rng.random() < reverse_prob:
+            out[name] = out[name][::-1]
+        out[name] = np.ascontiguousarray(out[name])
     return out
 
 
