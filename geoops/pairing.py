@@ -31,6 +31,9 @@ MIN_SHARED_FRACTION = 0.3
 FRONT_REAR_NEAR_M = SHIFT_MAX_M + 0.1
 #: quantile of the spacing profile compared with FRONT_REAR_NEAR_M
 NEAR_QUANTILE = 10.0
+#: share of the shorter of two ruts within NEIGHBOUR_DISTANCE_M of the other for a left-over
+#: rut to count as running alongside a pair's rut (an overlapping pass, not a fragment)
+OVERLAP_ALONGSIDE = 0.6
 
 
 @dataclass(frozen=True)
@@ -121,7 +124,8 @@ def choose_pairs(
         used.update((i, j))
         pairs.append((i, j, res))
     pairs.sort(key=lambda c: min(c[0], c[1]))
-    overlaps = _overlaps(pairs, fitting, used, same_line)
+    alongside = {(c.i, c.j): c.shared for c in cands}
+    overlaps = _overlaps(pairs, fitting, used, same_line, alongside)
     had_neighbour = {k for c in cands for k in (c.i, c.j)}
     unpaired = {
         k: ("not_a_pair" if k in had_neighbour else "no_partner")
@@ -138,22 +142,29 @@ def _overlaps(
     fitting: list[tuple[int, int, float, PairResult]],
     used: set[int],
     same_line: list[int] | None,
+    alongside: dict[tuple[int, int], float],
 ) -> dict[int, list[int]]:
-    """Ruts left unpaired that fit (wheelbase identifiable) a rut of an accepted pair: two
-    vehicles drove one line (a shared rear track, say, with two front tracks), and which of
-    them a rut belongs to is beyond the geometry. Legs of a line cut at its reversals are
-    left to the manoeuvre logic."""
+    """Ruts left unpaired that fit (wheelbase identifiable) a rut of an accepted pair and run
+    alongside its partner over most of their length: two vehicles drove one line (a shared
+    rear track, say, with two front tracks), and which of them a rut belongs to is beyond the
+    geometry. A fragment of the partner (end to end with it, not alongside) is not one, and
+    legs of a line cut at its reversals are left to the manoeuvre logic."""
     lines: dict[int, int] = {}
     if same_line is not None:
         for k in same_line:
             lines[k] = lines.get(k, 0) + 1
     where = {r: n for n, (i, j, _) in enumerate(pairs) for r in (i, j)}
+    partner = {a: b for i, j, _ in pairs for a, b in ((i, j), (j, i))}
     out: dict[int, list[int]] = {}
     for i, j, _, res in fitting:
         if res.wheelbase is None:
             continue
         for inside, extra in ((i, j), (j, i)):
-            if inside in where and extra not in used and (
+            if inside not in where or extra in used:
+                continue
+            other = partner[inside]
+            beside = alongside.get((min(other, extra), max(other, extra)), 0.0)
+            if beside >= OVERLAP_ALONGSIDE and (
                 same_line is None or lines[same_line[extra]] == 1
             ):
                 out.setdefault(where[inside], []).append(extra)

@@ -4,8 +4,8 @@ Scenario (invented; see sample_layers/README.md): Harrowmere Heath, a moorland r
 the Southern Uplands. Ranger Ilse Brannock walks fresh wheel ruts near the north gate with an
 RTK rover; analyst Tomas Everleigh digitises ruts from drone imagery of the burn crossing in the
 national grid; survey pilot Mairi Castlebeck traces the rut map of the busy track junction by
-the old fold from a drone survey. The coordinates are real moorland; the people, the reserve and every rut are
-invented. Run: ``python sample_layers/make_samples.py`` (or ``make samples``).
+the old fold from a drone survey. The coordinates are real moorland; the people, the reserve
+and every rut are invented. Run: ``python sample_layers/make_samples.py`` (or ``make samples``).
 """
 
 from __future__ import annotations

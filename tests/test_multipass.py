@@ -164,3 +164,22 @@ def test_two_vehicles_on_one_line_come_out_mixed(tmp_path, seed):
     assert list(passes["verdict"]) == ["mixed"]
     assert passes["rut_ids"].iloc[0] == "1,2,3"
     assert set(ruts["verdict"]) == {"mixed"}
+
+
+def test_a_rut_mapped_in_pieces_is_not_an_overlapping_pass(tmp_path):
+    """The front track of a car mapped as two features (lost on hard ground for 3 m): the
+    pieces lie end to end, not alongside each other, so they are one rut, not two passes."""
+    from geoops.scenarios import CAR, fragment, mapped_lines
+    from geoops.trails import SceneLine, _trail, drive_wandering
+
+    for seed in range(4):
+        rng = np.random.default_rng(seed)
+        sim = drive_wandering(_trail(rng, 90.0), CAR, 0.0, 0.2, 35.0, 0.3, False)
+        lines = mapped_lines(sim, 0.02, (0.3, 0.6), rng)
+        scene = Scene()
+        for xy in [lines["rear_left"], *fragment(lines["front_left"], rng, 1, 3.0)]:
+            scene.lines.append(SceneLine(xy + np.array(ORIGIN), 0, "", "car", None))
+        src = str(tmp_path / f"pieces_{seed}.gpkg")
+        write_scene(scene, src, CRS)
+        result = analyze_file(src)
+        assert [p.verdict for p in result.passes] == ["decided"]
