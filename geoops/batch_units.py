@@ -27,14 +27,16 @@ import shapely
 from scipy.sparse import coo_matrix
 from scipy.sparse.csgraph import connected_components
 
+from .chaining import MAX_GAP_M
 from .frame import build_frame, resolve_crs
 from .io import InputLayer, OutputLayer
 from .pairing import NEIGHBOUR_DISTANCE_M
 from .pipeline import AnalyzeOptions, analyze_layer, result_layers
 
 #: features closer than this (metres, anywhere along their raw lines) share a work unit; the
-#: margin over the pairing's reach covers smoothing and the cutting of ruts into legs
-NEIGHBOUR_REACH_M = NEIGHBOUR_DISTANCE_M + 1.0
+#: margin over the pairing's reach covers smoothing and the cutting of ruts into legs, and the
+#: reach covers the gaps bridged between pieces of one rut (geoops.chaining)
+NEIGHBOUR_REACH_M = max(NEIGHBOUR_DISTANCE_M + 1.0, MAX_GAP_M + 0.5)
 #: fields holding a pass id (renumbered on assembly) in the passes and ruts layers
 PASS_ID_FIELDS = ("pass_id", "pass_group")
 

@@ -22,7 +22,8 @@ import shapely
 
 from . import __version__
 from .axles import TRACK_MAX_M, Side, choose_axles, join_cost, spacing
-from .clean import CleanRut, clean_rut
+from .chaining import chain_features
+from .clean import CleanRut, clean_rut, join_parts
 from .crosscheck import steady_turn_wheelbase
 from .curves import Array, as_linestrings
 from .errors import BadInput, CrsError
@@ -399,6 +400,14 @@ def _make_axle_pass(
     return record, labels
 
 
+def _joined(parts: list[np.ndarray]) -> np.ndarray | None:
+    """A feature's parts joined into one line (for chaining pieces), None if degenerate."""
+    try:
+        return join_parts(parts)[0]
+    except BadInput:
+        return None
+
+
 def _clean_one(state: dict[str, Any], k: int) -> tuple[CleanRut, list[Leg]] | str:
     """Clean input feature ``k`` and cut it into legs, or say why it cannot be used."""
     try:
@@ -429,8 +438,28 @@ def analyze_layer(
     for parts in layer.parts:
         local.append([np.column_stack(frame.to_local(p[:, 0], p[:, 1])) for p in parts])
         length_m = add_length(length_m, local[-1])  # time and memory grow with length: bounded
+    # pieces of one rut mapped as separate features are cleaned as one rut, named by its
+    # first piece; its source ids list every piece
+    ids = list(layer.ids)
+    pieces_of: dict[int, list[int]] = {}
+    for group in chain_features([_joined(parts) for parts in local]):
+        first = group[0]
+        pieces_of[first] = group
+        local[first] = [p for k in group for p in local[k]]
+        known = [a for a in (accuracies[k] for k in group) if a is not None]
+        accuracies[first] = float(np.median(known)) if known else None
+        ids[first] = ",".join(layer.ids[k] for k in group)
+    if pieces_of:
+        warnings.append(
+            f"{sum(len(g) for g in pieces_of.values())} features are pieces of "
+            f"{len(pieces_of)} ruts (end to end across short gaps) and were analysed as "
+            "such: " + "; ".join(ids[k] for k in list(pieces_of)[:20])
+            + (" ..." if len(pieces_of) > 20 else "")
+        )
+    merged = {k for g in pieces_of.values() for k in g[1:]}
+    keys = [k for k in range(len(local)) if k not in merged]
     state = {"local": local, "accuracies": accuracies}
-    for k, cleaned in enumerate(pool_map(_clean_one, range(len(local)), state, workers)):
+    for k, cleaned in zip(keys, pool_map(_clean_one, keys, state, workers), strict=True):
         if isinstance(cleaned, str):
             bad.append((k, cleaned))
             continue
@@ -449,16 +478,16 @@ def analyze_layer(
     for n, unit in enumerate(_axle_units(leg_passes, legs), start=1):
         if len(unit) == 1:
             lp = leg_passes[unit[0]]
-            record = _make_pass(n, lp, legs, layer.ids)
+            record = _make_pass(n, lp, legs, ids)
             labels = _leg_labels(lp, legs)
         else:
             lp = leg_passes[unit[0]]
             record, labels = _make_axle_pass(
-                n, leg_passes[unit[0]], leg_passes[unit[1]], legs, layer.ids
+                n, leg_passes[unit[0]], leg_passes[unit[1]], legs, ids
             )
         extra = [k for u in unit for k in overlapping.get(leg_passes[u].pair, [])]
         if extra:
-            _mark_overlapping(record, labels, [legs[k].rut for k in extra], layer.ids)
+            _mark_overlapping(record, labels, [legs[k].rut for k in extra], ids)
         record.pass_group = group_first.setdefault(lp.group, n)
         passes.append(record)
         if _estimates_disagree(record):
@@ -482,7 +511,7 @@ def analyze_layer(
             pid, wheel, verdict, follows = rut_info[k]
             geom = rut.raw_xy[::-1] if follows is False else rut.raw_xy
             ruts_out.append(
-                RutRecord(k + 1, pid, wheel, verdict, None, layer.ids[k], rut.raw_length, geom)
+                RutRecord(k + 1, pid, wheel, verdict, None, ids[k], rut.raw_length, geom)
             )
         else:
             ruts_out.append(
@@ -492,7 +521,7 @@ def analyze_layer(
                     "unassigned",
                     "unpaired",
                     unpaired_reason.get(k, "no_partner"),
-                    layer.ids[k],
+                    ids[k],
                     rut.raw_length,
                     rut.raw_xy,
                 )
@@ -501,10 +530,10 @@ def analyze_layer(
         xy = np.column_stack(frame.to_local(*np.concatenate(layer.parts[k]).T))
         ruts_out.append(
             RutRecord(
-                k + 1, None, "unassigned", "unpaired", "degenerate_line", layer.ids[k], 0.0, xy
+                k + 1, None, "unassigned", "unpaired", "degenerate_line", ids[k], 0.0, xy
             )
         )
-        warnings.append(f"Feature {layer.ids[k]}: {message}")
+        warnings.append(f"Feature {ids[k]}: {message}")
     ruts_out.sort(key=lambda r: r.rut_id)
     for fid, reason in layer.skipped:
         warnings.append(f"Feature {fid} skipped: {reason.replace('_', ' ')}.")

@@ -23,7 +23,7 @@ from dataclasses import dataclass, field
 import numpy as np
 
 from .kinematics import SimulatedPass, Vehicle, simulate_steering
-from .scenarios import PRESETS, mapped_lines, random_smooth, slalom
+from .scenarios import PRESETS, fragment, mapped_lines, random_smooth, slalom
 
 FloatArray = np.ndarray
 
@@ -216,6 +216,7 @@ def make_scene(
     spacing_m: tuple[float, float] = (0.5, 1.5),
     cell_m: float = 150.0,
     origin: tuple[float, float] = (0.0, 0.0),
+    split_share: float = 0.0,
 ) -> Scene:
     """A seeded scene of ``n_trails`` trails on a grid of ``cell_m`` cells.
 
@@ -223,6 +224,8 @@ def make_scene(
     share of the cells hold a second trail crossing the first; distractors (fences,
     footpaths, drainage lines, lone single tracks) are scattered over the cells, crossing the
     trails. Lines come out in random vertex order with ``noise_m`` per-axis vertex noise.
+    A ``split_share`` of the passes has one rut mapped in two pieces, 2-6 m apart (lost on
+    hard ground), each its own feature.
     """
     rng = np.random.default_rng(seed)
     scene = Scene()
@@ -257,13 +260,18 @@ def make_scene(
                     continue
                 lines = mapped_lines(sim, noise_m, spacing_m, rng)
                 wheels = sim.wheels()
+                split = str(rng.choice(list(lines))) if rng.random() < split_share else None
                 idx = []
                 for wheel, xy in lines.items():
                     follows = _follows(xy, wheels[wheel])
                     placed = (xy - mid) @ rot.T + centre
-                    idx.append(len(scene.lines))
-                    scene.lines.append(SceneLine(placed, len(scene.passes), wheel, v.name,
-                                                 follows))
+                    pieces = [placed]
+                    if wheel == split:
+                        pieces = fragment(placed, rng, 1, float(rng.uniform(2.0, 6.0)))
+                    for piece in pieces:
+                        idx.append(len(scene.lines))
+                        scene.lines.append(SceneLine(piece, len(scene.passes), wheel, v.name,
+                                                     follows))
                 scene.passes.append(ScenePass(len(scene.passes), v, trail_no, d,
                                               not _follows(sim.rear, trail.rear), tuple(idx)))
             trail_no += 1
@@ -323,22 +331,31 @@ class SceneScore:
 
 
 def score_output(scene: Scene, path: str) -> SceneScore:
-    """Compare the ``passes`` and ``ruts`` layers written for ``scene`` (in the scene's order
-    of features) with the truth."""
+    """Compare the ``passes`` and ``ruts`` layers written for ``scene`` with the truth.
+
+    Input features are named in ``source_fids`` by their GeoPackage fid, which
+    :func:`write_scene` makes the line's position plus one; a rut record lists every piece it
+    was made of."""
     import pyogrio
     import shapely
 
     ruts = pyogrio.read_dataframe(path, layer="ruts")
     passes = pyogrio.read_dataframe(path, layer="passes")
     by_pass: dict[int, set[int]] = {}
-    for rut_id, pid in zip(ruts["rut_id"], ruts["pass_id"], strict=True):
+    pieces: list[tuple[list[int], FloatArray]] = []
+    for fids, pid, geom in zip(ruts["source_fids"], ruts["pass_id"], ruts.geometry, strict=True):
+        lines = [int(f) - 1 for f in str(fids).split(",")]
+        pieces.append((lines, shapely.get_coordinates(geom)))
         if pid is not None and not (isinstance(pid, float) and math.isnan(pid)):
-            by_pass.setdefault(int(pid), set()).add(int(rut_id) - 1)
+            by_pass.setdefault(int(pid), set()).update(lines)
     found = {frozenset(v) for v in by_pass.values()}
     reconstructed = sum(frozenset(p.lines) in found for p in scene.passes)
     in_pass = {k for v in by_pass.values() for k in v}
     distractors = scene.distractors()
-    geoms = dict(zip((int(r) - 1 for r in ruts["rut_id"]), ruts.geometry, strict=True))
+    record_of = {k: n for n, (lines, _) in enumerate(pieces) for k in lines}
+    rut_pass = {
+        k: pid for pid, lines in by_pass.items() for k in lines
+    }
     decided = right = 0
     verdicts: dict[str, int] = {}
     for pid, verdict in zip(passes["pass_id"], passes["verdict"], strict=True):
@@ -347,11 +364,13 @@ def score_output(scene: Scene, path: str) -> SceneScore:
             continue
         decided += 1
         ok = True
-        for k in by_pass.get(int(pid), ()):
+        for k in (k for k, p in rut_pass.items() if p == int(pid)):
             line = scene.lines[k]
-            out = shapely.get_coordinates(geoms[k])
-            same = np.hypot(*(out[0] - line.xy[0])) < np.hypot(*(out[0] - line.xy[-1]))
-            ok &= line.follows is not None and bool(same) == line.follows
+            out = pieces[record_of[k]][1]
+            # the output line runs in the travel direction: it meets the piece's first vertex
+            # before its last exactly when the piece was drawn in the travel direction
+            near = [int(np.argmin(np.hypot(*(out - v).T))) for v in (line.xy[0], line.xy[-1])]
+            ok &= line.follows is not None and (near[0] < near[1]) == line.follows
         right += ok
     return SceneScore(len(scene.passes), reconstructed, len(distractors),
                       len(in_pass.intersection(distractors)), decided, right, verdicts)
