@@ -38,11 +38,14 @@ CRS = "EPSG:32633"
 ORIGIN = (500_000.0, 5_500_000.0)
 #: trails at scale 1 (about 200 km of rut)
 TRAILS = 470
+#: share of passes with one rut mapped in two pieces
+SPLIT_SHARE = 0.1
 
 
 def make_layer(path: Path, scale: float, seed: int = 7) -> Scene:
     """Write the seeded layer and return its scene (with the truth)."""
-    scene = make_scene(seed, max(int(round(TRAILS * scale)), 1), origin=ORIGIN)
+    scene = make_scene(seed, max(int(round(TRAILS * scale)), 1), origin=ORIGIN,
+                       split_share=SPLIT_SHARE)
     write_scene(scene, str(path), CRS)
     return scene
 
@@ -115,7 +118,8 @@ def main() -> None:
         "",
         f"Seeded multi-pass layer in {CRS} (geoops.trails: trails driven by 1-3 vehicles each, "
         "crossing trails, fences, footpaths, drains and lone tracks; 0.03 m vertex noise, vertex "
-        "spacing 0.5-1.5 m). Whole `rutwise analyze` in a fresh process (start-up included) "
+        f"spacing 0.5-1.5 m; {SPLIT_SHARE:.0%} of passes have a rut mapped in two pieces). "
+        "Whole `rutwise analyze` in a fresh process (start-up included) "
         "against a plain pyogrio read + write of the same layer, in the same run. "
         f"Machine: {os.cpu_count()} cores, shared; scale {args.scale}.",
         "",
