@@ -1,5 +1,8 @@
 """A reduced, seeded run of the accuracy benchmark's scenarios (bench/accuracy.py), with
 thresholds that catch a regression. The full run and its table live in bench/accuracy.md.
+Fixed cases: curved passes, circles and straights at every noise level, four ruts of one
+vehicle through the pipeline, unrelated lines laid over each other. Two strict xfails mark
+engine gaps the benchmark shows; they fail once the gap is closed (then drop the marker).
 
 The simulator behind these scenarios is checked against published closed forms in
 test_reference_kinematics.py; the property relied on is the kinematic bicycle model's (front
@@ -11,7 +14,7 @@ from __future__ import annotations
 import numpy as np
 import pytest
 
-from bench.accuracy import run_case
+from bench.accuracy import NOISES, run_case, run_four_wheel, run_unrelated
 
 # (path, noise sigma m, noise model) per vehicle: curved paths under each noise model
 CURVED = [("slalom", 0.03, "white"), ("random", 0.03, "gnss"), ("s_curve", 0.01, "fragments")]
@@ -48,9 +51,82 @@ def test_wheelbase_error_median_and_p90(curved_cases):
     assert np.percentile(errors, 90) <= 0.08
 
 
+@pytest.mark.parametrize("noise", NOISES)
 @pytest.mark.parametrize("vehicle", ["bicycle", "car", "tractor"])
-def test_circles_are_never_confidently_decided(vehicle):
+def test_circles_and_straights_are_never_decided(vehicle, noise):
+    base = 71_000 + 100 * VEHICLES.index(vehicle) + round(noise * 1000)
     for k, model in enumerate(("white", "gnss")):
-        case = run_case(vehicle, "circle", 0.03, 71_000 + k + 10 * len(vehicle), model)
+        circle = run_case(vehicle, "circle", noise, base + k, model)
         # source: Finn 2004 / Tabachnikov arXiv math/0405445 - a circle fits both directions
-        assert case.verdict != "decided" or max(case.confidence, 1 - case.confidence) < 0.99
+        assert circle.verdict != "decided", (model, circle.confidence)
+        straight = run_case(vehicle, "straight", noise, base + 50 + k, model)
+        # source: Finn 2004 - collinear straight tracks carry neither direction nor wheelbase
+        assert straight.verdict != "decided" and straight.wb_err is None, model
+        if model == "white":  # under the wandering gnss error some are not_a_pair (below)
+            assert straight.verdict == "undetermined"
+
+
+@pytest.mark.xfail(
+    strict=True,
+    reason="engine: each line's own slowly wandering error pulls two straight tracks apart "
+    "by more than the tolerance, which is set from the vertex-to-vertex noise (a third of it "
+    "here); the pair is judged not_a_pair instead of undetermined (bench/accuracy.md)",
+)
+def test_straight_under_wandering_error_is_undetermined():
+    # source: Finn 2004 - collinear straight tracks: a pair, but no direction, no wheelbase
+    assert run_case("car", "straight", 0.3, 71_651, "gnss").verdict == "undetermined"
+
+
+# (vehicle, path, noise sigma m, seed): four ruts of one pass through the whole pipeline
+FOUR_RUTS = [
+    ("atv", "slalom", 0.01, 81_001),
+    ("car", "single_turn", 0.03, 81_002),
+    ("pickup", "random", 0.03, 81_003),
+    ("car", "s_curve", 0.01, 81_005),
+    ("tractor", "slalom", 0.03, 83_000),
+    ("tractor", "random", 0.03, 83_002),
+]
+
+
+@pytest.mark.parametrize(("vehicle", "path", "noise", "seed"), FOUR_RUTS)
+def test_four_ruts_join_into_one_pass(vehicle, path, noise, seed):
+    r = run_four_wheel(vehicle, path, noise, seed)
+    assert r.joined, f"{r.passes} passes"
+    # source: Finn 2004 (front = rear + L * tangent), on both sides at once
+    assert r.decided and r.right
+    # source: kinematic bicycle model (references.md) - rear tracks are parallel curves one
+    # rear track width apart
+    assert r.tw_err <= 0.03
+    # common practice: wheelbase within a few percent is what tells a car from a pickup
+    assert r.wb_err <= 0.04
+
+
+@pytest.mark.xfail(
+    strict=True,
+    reason="engine: the tractor's front tracks run 0.15 m inside its rear tracks (track "
+    "widths 1.6 / 1.9 m); the solver ranks the hypotheses without a lateral shift, so at low "
+    "noise one side is judged not_a_pair and the sides cannot join (bench/accuracy.md)",
+)
+def test_tractor_ruts_join_at_low_noise():
+    r = run_four_wheel("tractor", "s_curve", 0.01, 81_004)
+    # source: kinematic bicycle model (references.md) - four-wheel vehicle, one axle each end
+    assert r.joined
+
+
+@pytest.mark.parametrize("noise", [0.01, 0.03, 0.1])
+def test_unrelated_lines_are_never_a_pair(noise):
+    verdicts = [run_unrelated(noise, 82_000 + k + round(noise * 1000)).verdict for k in range(8)]
+    # source: Finn 2004 - a front track is its rear track plus L * tangent; two independent
+    # lines are not, wherever they are laid
+    assert verdicts == ["not_a_pair"] * 8
+
+
+@pytest.mark.xfail(
+    strict=True,
+    reason="engine: at 0.3 m noise the tolerance (3 sigma of the pair, about 1.3 m) and the "
+    "tangent-noise correction L^2 var(theta) near the 12 m wheelbase bound let unrelated "
+    "lines pass as an undetermined pair (bench/accuracy.md)",
+)
+def test_unrelated_lines_at_high_noise_are_not_a_pair():
+    # source: Finn 2004 - as above
+    assert run_unrelated(0.3, 82_307).verdict == "not_a_pair"
