@@ -1,7 +1,7 @@
 """A reduced, seeded run of the accuracy benchmark's scenarios (bench/accuracy.py), with
 thresholds that catch a regression. The full run and its table live in bench/accuracy.md.
 Fixed cases: curved passes, circles and straights at every noise level, four ruts of one
-vehicle through the pipeline, unrelated lines laid over each other. Two strict xfails mark
+vehicle through the pipeline, unrelated lines laid over each other. Three strict xfails mark
 engine gaps the benchmark shows; they fail once the gap is closed (then drop the marker).
 
 The simulator behind these scenarios is checked against published closed forms in
