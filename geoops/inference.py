@@ -600,6 +600,15 @@ def solve_pair(first: CleanRut, second: CleanRut) -> PairResult:
     # judged on the misfit left after removing the expected tangent-noise part (a short leg's
     # tangents are noisy, and that noise, carried one wheelbase forward, is not a misfit)
     misfit = float(np.sqrt(max(best.mse, 0.0)))
+    at_bound = best.wheelbase < WHEELBASE_MIN_M * 1.05 or best.wheelbase > WHEELBASE_MAX_M / 1.05
+    if at_bound:
+        # no wheelbase was found, only the end of the range, where L^2 var(theta) is largest:
+        # removing it there would excuse any misfit (two unrelated lines become a pair). Judge
+        # the plain misfit at its best wheelbase instead: straight tracks still fit (at a short
+        # one), unrelated lines do not
+        grid_mse, _ = best_obj.many(_GRID)
+        raw = grid_mse + _GRID**2 * best_obj.tvar
+        misfit = float(np.sqrt(max(float(np.min(raw)), 0.0))) if np.isfinite(raw).any() else misfit
     tolerance = tol_base + 0.01 * best.wheelbase
     # residuals are correlated (smoothing windows, slowly wandering GNSS error): count
     # independent stretches of the residual series, not samples
@@ -642,7 +651,6 @@ def solve_pair(first: CleanRut, second: CleanRut) -> PairResult:
     if misfit > tolerance:
         return base
     low, high = _interval(best_obj, best.wheelbase, best.mse, scale, shift != 0.0)
-    at_bound = best.wheelbase < WHEELBASE_MIN_M * 1.05 or best.wheelbase > WHEELBASE_MAX_M / 1.05
     open_interval = low <= WHEELBASE_MIN_M * 1.0001 or high >= WHEELBASE_MAX_M * 0.9999
     identifiable = not at_bound and not open_interval and (high - low) <= 0.5 * best.wheelbase
     p_dir = max(p_first, 1.0 - p_first)
