@@ -67,7 +67,19 @@ class Candidate:
         return self.near <= FRONT_REAR_NEAR_M + 3.0 * sigma
 
 
-def candidate_pairs(ruts: list[CleanRut]) -> list[Candidate]:
+def _profile(state: dict[str, Any], pair: tuple[int, int]) -> tuple[float, float]:
+    """Shared fraction and near-spacing quantile of a pair of ruts (see :class:`Candidate`)."""
+    ruts = state["ruts"]
+    i, j = pair
+    a, b = (ruts[i], ruts[j]) if ruts[i].length <= ruts[j].length else (ruts[j], ruts[i])
+    d, _ = b.index.distance_and_position(a.xy[:: max(len(a.xy) // 200, 1)])
+    within = d <= NEIGHBOUR_DISTANCE_M
+    shared = float(np.mean(within))
+    near = float(np.percentile(d[within], NEAR_QUANTILE)) if within.any() else float("inf")
+    return shared, near
+
+
+def candidate_pairs(ruts: list[CleanRut], workers: int | None = None) -> list[Candidate]:
     """Pairs of ruts that run near each other (at least :data:`MIN_SHARED_FRACTION` of the
     shorter within :data:`NEIGHBOUR_DISTANCE_M` of the other), with their spacing profile."""
     if len(ruts) < 2:
@@ -76,15 +88,13 @@ def candidate_pairs(ruts: list[CleanRut]) -> list[Candidate]:
     tree = shapely.STRtree(lines)
     left, right = tree.query(lines, predicate="dwithin", distance=NEIGHBOUR_DISTANCE_M)
     keep = left < right
-    out = []
-    for i, j in zip(left[keep].tolist(), right[keep].tolist(), strict=True):
-        a, b = (ruts[i], ruts[j]) if ruts[i].length <= ruts[j].length else (ruts[j], ruts[i])
-        d, _, _ = b.index.query(a.xy[:: max(len(a.xy) // 200, 1)])
-        within = d <= NEIGHBOUR_DISTANCE_M
-        shared = float(np.mean(within))
-        if shared >= MIN_SHARED_FRACTION:
-            out.append(Candidate(i, j, shared, float(np.percentile(d[within], NEAR_QUANTILE))))
-    return out
+    pairs = list(zip(left[keep].tolist(), right[keep].tolist(), strict=True))
+    profiles = pool_map(_profile, pairs, {"ruts": ruts}, workers)
+    return [
+        Candidate(i, j, shared, near)
+        for (i, j), (shared, near) in zip(pairs, profiles, strict=True)
+        if shared >= MIN_SHARED_FRACTION
+    ]
 
 
 def _rank(result: PairResult, shared: float) -> float:
@@ -108,7 +118,7 @@ def choose_pairs(
     its reversals); legs of one line are never paired with each other. ``workers`` > 1
     judges the candidates in that many forked processes (same result).
     """
-    cands = candidate_pairs(ruts)
+    cands = candidate_pairs(ruts, workers)
     if same_line is not None:
         cands = [c for c in cands if same_line[c.i] != same_line[c.j]]
     todo = [c for c in cands if c.may_be_front_rear(ruts)]
