@@ -198,3 +198,27 @@ def test_a_rut_mapped_in_pieces_is_one_rut(tmp_path):
         assert [p.verdict for p in result.passes] == ["decided"]
         assert result.passes[0].source_fids.split(",") == ["1", "2", "3"]
         assert len(result.ruts) == 2  # the pieces are one rut, listing both features
+
+
+def test_only_pairs_that_come_together_reach_the_solver():
+    """Front and rear tracks of one side coincide wherever the vehicle runs straight; the
+    left and right tracks of one axle stay a track width apart (references.md: four-wheel
+    vehicle, derived from the kinematic bicycle model)."""
+    from geoops.clean import clean_rut
+    from geoops.pairing import candidate_pairs
+    from geoops.scenarios import CAR, mapped_lines
+    from geoops.trails import _trail, drive_wandering
+
+    rng = np.random.default_rng(9)
+    sim = drive_wandering(_trail(rng, 80.0), CAR, 0.0, 0.2, 35.0, 0.3, False)
+    lines = mapped_lines(sim, 0.02, (0.3, 0.6), rng)
+    names = list(lines)
+    ruts = [clean_rut([lines[n]]) for n in names]
+    verdicts = {
+        frozenset((names[c.i], names[c.j])): c.may_be_front_rear(ruts)
+        for c in candidate_pairs(ruts)
+    }
+    assert verdicts[frozenset(("rear_left", "front_left"))]
+    assert verdicts[frozenset(("rear_right", "front_right"))]
+    assert not verdicts[frozenset(("rear_left", "rear_right"))]
+    assert not verdicts[frozenset(("front_left", "front_right"))]
