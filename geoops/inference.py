@@ -580,22 +580,33 @@ def solve_pair(first: CleanRut, second: CleanRut) -> PairResult:
     if not finite:
         return empty
     best = min(finite, key=lambda f: f.mse)
+    window = max(first.window_m, second.window_m)
+
+    def sample_spacing(f: HypothesisFit) -> float:
+        stride = overlaps[f.rear].sum() / max(len(objs[(f.rear, f.along)].fine.base), 1)
+        return tracks[f.rear].step * max(stride, 1.0)
+
+    if np.sqrt(max(best.mse, 0.0)) > SHIFT_TRY_AT * sigma_pair:
+        # a misfit a constant lateral shift may explain (same-side tracks of axles with
+        # different track widths): the best of each direction takes its own shift, and the
+        # two are compared with it; ranked without one, the wrong direction can come first
+        rival = [f for f in finite if f.follows_first != best.follows_first]
+        shifted = []
+        for f in [best, *([min(rival, key=lambda g: g.mse)] if rival else [])]:
+            length, mse, n_used, shift = _fit_with_shift(
+                objs[(f.rear, f.along)], (f.wheelbase, f.mse, f.n_used), window,
+                sample_spacing(f),
+            )
+            shifted.append(replace(f, wheelbase=length, mse=mse, n_used=n_used, shift=shift))
+        by_key = {(f.rear, f.along): f for f in shifted}
+        finite = [by_key.get((f.rear, f.along), f) for f in finite]
+        best = min(shifted, key=lambda f: f.mse)
+    shift = best.shift
     rear_track = tracks[best.rear]
     target_track = tracks[1 - best.rear]
     best_hyp = objs[(best.rear, best.along)]
     best_obj = best_hyp.fine
-    stride = overlaps[best.rear].sum() / max(len(best_obj.base), 1)
-    spacing = rear_track.step * max(stride, 1.0)
-    # the hypotheses are ranked without a lateral shift (a shift lets a wrong hypothesis mimic
-    # the right one on circles); the winner may then take one for its wheelbase and residual
-    window = max(rear_track.window_m, target_track.window_m)
-    shift = 0.0
-    if np.sqrt(max(best.mse, 0.0)) > SHIFT_TRY_AT * sigma_pair:
-        length, mse, n_used, shift = _fit_with_shift(
-            best_hyp, (best.wheelbase, best.mse, best.n_used), window, spacing
-        )
-    if shift != 0.0:
-        best = replace(best, wheelbase=length, mse=mse, n_used=n_used, shift=shift)
+    spacing = sample_spacing(best)
     residual = float(np.sqrt(best.raw_mse))
     # judged on the misfit left after removing the expected tangent-noise part (a short leg's
     # tangents are noisy, and that noise, carried one wheelbase forward, is not a misfit)
