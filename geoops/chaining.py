@@ -180,11 +180,11 @@ def chain_features(lines: list[Array | None]) -> list[list[int]]:
 
     usable = [k for k, xy in enumerate(lines) if xy is not None and len(xy) >= 2]  # witnesses
     geoms = as_linestrings([xy for xy in lines if xy is not None and len(xy) >= 2])
-    tree = shapely.STRtree(geoms)
+    line_tree = shapely.STRtree(geoms)
 
     def witnessed(a: int, b: int) -> bool:
         ends = shapely.points(pts[[a, b]])
-        near = [set(tree.query(e, "dwithin", WITNESS_M).tolist()) for e in ends]
+        near = [set(line_tree.query(e, "dwithin", WITNESS_M).tolist()) for e in ends]
         for i in near[0] & near[1]:
             if usable[i] in (owner[a], owner[b]):
                 continue
