@@ -506,6 +506,41 @@ def curvature_varies(track: CleanRut, z: float = 3.0) -> bool:
     return bool(significant and np.sqrt(max(excess, 0.0)) >= CURVATURE_CHANGE_SHARE * level)
 
 
+def curvature_shared(
+    rear: CleanRut, front: CleanRut, along: int, length: float, shift: float = 0.0,
+    z: float = 1.0,
+) -> bool:
+    """Whether the rear track's changes of curvature show in the front track as well.
+
+    A real change of steering bends both tracks at once; survey error (a slowly wandering
+    GNSS error on a steady turn, say) bends each line on its own. The rear's curvature at
+    window spacing is compared with the front's where the hypothesis puts the front axle at
+    that moment (one wheelbase along the rear tangent): true when they are positively
+    correlated by more than ``z`` standard errors (1 / sqrt(samples)). Too short a pair to
+    say counts as shared (the other checks decide).
+    """
+    kr, cr, _ = rear.curvature()
+    kf, cf, _ = front.curvature()
+    half = max(rear.window_pts // 2, 1)
+    keep = cr[rear.has_data[cr]][:: 2 * half]
+    if len(keep) < 6 or len(kf) == 0:
+        return True
+    u = along * rear.tangents[keep]
+    normal = np.column_stack([-u[:, 1], u[:, 0]])
+    d, s = front.index.distance_and_position(rear.xy[keep] + length * u + shift * normal)
+    j = np.clip(np.rint(s / front.step).astype(np.int64) - int(cf[0]), 0, len(kf) - 1)
+    a = kr[keep - cr[0]] - kr[keep - cr[0]].mean()
+    b = kf[j] - kf[j].mean()
+    den = float(np.sqrt(np.dot(a, a) * np.dot(b, b)))
+    if den <= 0:
+        return False
+    # curvature is signed by each line's own vertex order: align the front's to the rear's
+    at_front = np.clip(j + int(cf[0]), 0, len(front.tangents) - 1)
+    same = float(np.mean(np.einsum("ij,ij->i", rear.tangents[keep], front.tangents[at_front])))
+    r = float(np.dot(a, b)) / den * (1.0 if same >= 0 else -1.0)
+    return r > z / np.sqrt(len(a))
+
+
 def _sigmoid(x: float) -> float:
     return float(1.0 / (1.0 + np.exp(-np.clip(x, -MAX_LOG_ODDS, MAX_LOG_ODDS))))
 
@@ -665,9 +700,13 @@ def solve_pair(first: CleanRut, second: CleanRut) -> PairResult:
     open_interval = low <= WHEELBASE_MIN_M * 1.0001 or high >= WHEELBASE_MAX_M * 0.9999
     identifiable = not at_bound and not open_interval and (high - low) <= 0.5 * best.wheelbase
     p_dir = max(p_first, 1.0 - p_first)
-    if p_dir >= DECIDE_AT and not curvature_varies(rear_track):
+    if p_dir >= DECIDE_AT and not (
+        curvature_varies(rear_track)
+        and curvature_shared(rear_track, target_track, best.along, best.wheelbase, shift)
+    ):
         # constant curvature (a circle or a straight): both directions fit, whatever small
-        # systematic survey error makes one look better (Finn 2004; Tabachnikov 2004)
+        # systematic survey error makes one look better (Finn 2004; Tabachnikov 2004); a
+        # change of curvature that only one line shows is survey error, not steering
         p_dir = 0.5
     rear_known = max(p_rear_first, 1 - p_rear_first) >= DECIDE_AT
     if identifiable:

@@ -66,6 +66,14 @@ def test_circles_and_straights_are_never_decided(vehicle, noise):
             assert straight.verdict == "undetermined"
 
 
+def test_a_circle_bent_by_wandering_survey_error_is_not_decided():
+    """A tractor's steady circle under GNSS-like wandering error (0.3 m): each line's own
+    error varies its curvature, but a change of steering would bend both tracks at once."""
+    case = run_case("tractor", "circle", 0.3, 2800, "gnss")
+    # source: Finn 2004 / Tabachnikov arXiv math/0405445 - a circle fits both directions
+    assert case.verdict != "decided", case.confidence
+
+
 @pytest.mark.xfail(
     strict=True,
     reason="engine: each line's own slowly wandering error pulls two straight tracks apart "
