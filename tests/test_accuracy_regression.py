@@ -1,8 +1,9 @@
 """A reduced, seeded run of the accuracy benchmark's scenarios (bench/accuracy.py), with
 thresholds that catch a regression. The full run and its table live in bench/accuracy.md.
 Fixed cases: curved passes, circles and straights at every noise level, four ruts of one
-vehicle through the pipeline, unrelated lines laid over each other. Three strict xfails mark
-engine gaps the benchmark shows; they fail once the gap is closed (then drop the marker).
+vehicle through the pipeline, unrelated lines laid over each other, a circle bent by survey
+error. A strict xfail marks an engine gap the benchmark shows (straight tracks under wandering
+survey error); it fails once the gap is closed (then drop the marker).
 
 The simulator behind these scenarios is checked against published closed forms in
 test_reference_kinematics.py; the property relied on is the kinematic bicycle model's (front
