@@ -39,6 +39,7 @@ from geoops.pipeline import AnalysisResult, analyze_layer
 from geoops.scenarios import (
     PRESETS,
     circle,
+    follows_path,
     fragment,
     mapped_lines,
     merged_lines,
@@ -169,10 +170,6 @@ def _keys(sim: SimulatedPass) -> tuple[str, str]:
     return ("rear", "front") if sim.vehicle.is_single_track else ("rear_left", "front_left")
 
 
-def _follows(line: np.ndarray, path: np.ndarray) -> bool:
-    return bool(np.hypot(*(line[0] - path[0])) < np.hypot(*(line[-1] - path[0])))
-
-
 def _signal(sim: SimulatedPass) -> float:
     rear, front = _keys(sim)
     lines = mapped_lines(
@@ -193,7 +190,7 @@ def _judge(
 ) -> Case:
     """Judge the pair, in the order of ``keys``, against the simulation's truth."""
     res = solve_pair(*(clean_rut(parts[k]) for k in keys))
-    truth = _follows(lines[keys[0]], sim.wheels()[keys[0]])
+    truth = follows_path(lines[keys[0]], sim.wheels()[keys[0]])
     right = None if res.verdict != "decided" else res.follows_first == truth
     wb = sim.vehicle.wheelbase
     wb_err = None if res.wheelbase is None else abs(res.wheelbase / wb - 1)

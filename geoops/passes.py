@@ -80,7 +80,8 @@ class LegPass:
     order: int  # position of the leg along the motion (0-based)
 
 
-def _logit(p: float) -> float:
+def logit(p: float) -> float:
+    """Log-odds of a probability (kept finite at 0 and 1)."""
     p = min(max(p, 1e-13), 1 - 1e-13)
     return float(np.log(p / (1 - p)))
 
@@ -139,7 +140,7 @@ def _assemble_group(
             continue
         pos = 0 if res.rear in (None, 0) else 1
         follows = res.follows(pos)
-        lo = _logit(res.confidence) * (1 if follows else -1) * parity(rear)
+        lo = logit(res.confidence) * (1 if follows else -1) * parity(rear)
         signs.add(lo > 0)
         log_odds += lo
     lengths = [r.wheelbase for *_, r in items if r.wheelbase is not None]

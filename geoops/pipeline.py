@@ -34,7 +34,7 @@ from .io import InputLayer, OutputLayer, read_layer, write_geojson, write_geopac
 from .limits import add_length
 from .pairing import choose_pairs
 from .parallel import pool_map
-from .passes import Leg, LegPass, assemble, split_into_legs
+from .passes import Leg, LegPass, assemble, logit, split_into_legs
 from .vehicles import suggest_class
 
 CAUTION = (
@@ -303,22 +303,20 @@ def _side_log_odds(lp: LegPass) -> float:
     """Log-odds that travel follows the rear leg's vertex order (0 when not decided)."""
     if lp.verdict != "decided" or lp.motion_follows_rear is None:
         return 0.0
-    p = min(max(lp.confidence, 1e-13), 1 - 1e-13)
-    lo = float(np.log(p / (1 - p)))
+    lo = logit(lp.confidence)
     return lo if lp.motion_follows_rear else -lo
 
 
 #: log-odds (p = 0.7) from which two sides' opposite direction evidence makes a joined pass
 #: `mixed` rather than one vehicle's verdict
-SIDE_CONFLICT_LOG_ODDS = float(np.log(0.7 / 0.3))
+SIDE_CONFLICT_LOG_ODDS = logit(0.7)
 
 
 def _side_evidence(lp: LegPass) -> float:
     """Log-odds, from the pair's own fit whatever its verdict, that travel follows the rear
     leg's vertex order."""
     r = lp.result
-    p = min(max(r.p_follows_first, 1e-13), 1 - 1e-13)
-    lo = float(np.log(p / (1 - p)))
+    lo = logit(r.p_follows_first)
     return lo if lp.rear_leg == lp.pair[0] or r.same_order else -lo
 
 

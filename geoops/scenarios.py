@@ -34,6 +34,7 @@ __all__ = [
     "TRACTOR",
     "circle",
     "correlated_noise",
+    "follows_path",
     "fragment",
     "mapped_lines",
     "merged_lines",
@@ -281,6 +282,21 @@ def _survey_stations(
     if inner.size and total - inner[-1] < 1e-6:
         inner = inner[:-1]
     return np.concatenate([[0.0], inner, [total]])
+
+
+def follows_path(line: npt.ArrayLike, path: npt.ArrayLike) -> bool:
+    """Whether a mapped line's vertex order follows a simulated path's travel order (its
+    first vertex lies nearer the path's start than its last does).
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> path = np.column_stack([np.arange(5.0), np.zeros(5)])
+    >>> follows_path(path[::2], path), follows_path(path[::-1], path)
+    (True, False)
+    """
+    xy, start = np.asarray(line), np.asarray(path)[0]
+    return bool(np.hypot(*(xy[0] - start)) < np.hypot(*(xy[-1] - start)))
 
 
 def mapped_lines(

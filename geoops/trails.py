@@ -23,7 +23,7 @@ from dataclasses import dataclass, field
 import numpy as np
 
 from .kinematics import SimulatedPass, Vehicle, simulate_steering
-from .scenarios import PRESETS, fragment, mapped_lines, random_smooth, slalom
+from .scenarios import PRESETS, follows_path, fragment, mapped_lines, random_smooth, slalom
 
 FloatArray = np.ndarray
 
@@ -187,10 +187,6 @@ def _offsets(rng: np.random.Generator, vehicles: list[Vehicle]) -> list[float] |
     return None
 
 
-def _follows(line: FloatArray, path: FloatArray) -> bool:
-    return bool(np.hypot(*(line[0] - path[0])) < np.hypot(*(line[-1] - path[0])))
-
-
 def _distractor(rng: np.random.Generator, kind: str, centre: FloatArray) -> FloatArray:
     start = centre + rng.uniform(-50, 50, 2)
     direction = rng.normal(size=2)
@@ -263,7 +259,7 @@ def make_scene(
                 split = str(rng.choice(list(lines))) if rng.random() < split_share else None
                 idx = []
                 for wheel, xy in lines.items():
-                    follows = _follows(xy, wheels[wheel])
+                    follows = follows_path(xy, wheels[wheel])
                     placed = (xy - mid) @ rot.T + centre
                     pieces = [placed]
                     if wheel == split:
@@ -273,7 +269,7 @@ def make_scene(
                         scene.lines.append(SceneLine(piece, len(scene.passes), wheel, v.name,
                                                      follows))
                 scene.passes.append(ScenePass(len(scene.passes), v, trail_no, d,
-                                              not _follows(sim.rear, trail.rear), tuple(idx)))
+                                              not follows_path(sim.rear, trail.rear), tuple(idx)))
             trail_no += 1
         n_d = int(rng.poisson(distractors_per_trail * len(angles)))
         for _ in range(n_d):

@@ -20,6 +20,7 @@ from geoops.scenarios import (
     BICYCLE,
     CAR,
     circle,
+    follows_path,
     mapped_lines,
     random_smooth,
     s_curve,
@@ -61,11 +62,6 @@ def _pair_case(seed: int) -> tuple[SimulatedPass, str, str, float]:
     return sim, "rear_left", "front_left", vehicle.wheelbase
 
 
-def _follows(line: np.ndarray, path: np.ndarray) -> bool:
-    """Whether a mapped line's vertex order follows the simulated path's travel order."""
-    return bool(np.hypot(*(line[0] - path[0])) < np.hypot(*(line[-1] - path[0])))
-
-
 def _judge(sim: SimulatedPass, rear_key: str, front_key: str, seed: int, noise: float = NOISE):
     rng = np.random.default_rng(10_000 + seed)
     lines = mapped_lines(sim, noise, SPACING, rng, which=[rear_key, front_key])
@@ -75,7 +71,7 @@ def _judge(sim: SimulatedPass, rear_key: str, front_key: str, seed: int, noise: 
         keys.reverse()
     first, second = (clean_rut([lines[k]]) for k in keys)
     result = solve_pair(first, second)
-    truth_first = _follows(lines[keys[0]], wheels[keys[0]])
+    truth_first = follows_path(lines[keys[0]], wheels[keys[0]])
     truth_rear = keys.index(rear_key)
     return result, truth_first, truth_rear
 

@@ -17,7 +17,15 @@ import pytest
 from geoops.clean import clean_rut
 from geoops.inference import solve_pair
 from geoops.kinematics import simulate_steering
-from geoops.scenarios import PRESETS, circle, merged_lines, s_curve, single_turn, straight
+from geoops.scenarios import (
+    PRESETS,
+    circle,
+    follows_path,
+    merged_lines,
+    s_curve,
+    single_turn,
+    straight,
+)
 
 SIM_STEP = 0.02
 SPACING = (0.3, 0.7)  # m between surveyed vertices, irregular  # common practice: walked RTK
@@ -26,10 +34,6 @@ MERGE_M = 0.05  # m: closer than this, one line is drawn for both  # common prac
 
 def _keys(vehicle):
     return ("rear", "front") if vehicle.is_single_track else ("rear_left", "front_left")
-
-
-def _follows(line, path) -> bool:
-    return bool(np.hypot(*(line[0] - path[0])) < np.hypot(*(line[-1] - path[0])))
 
 
 def test_merged_lines_share_vertices_and_part_with_a_jog():
@@ -78,7 +82,7 @@ def partly_merged():
         rear, front = _keys(v)
         lines = merged_lines(sim, rear, front, 0.03, SPACING, rng, merge_m=MERGE_M)
         result = solve_pair(clean_rut([lines[rear]]), clean_rut([lines[front]]))
-        out.append((result, _follows(lines[rear], sim.wheels()[rear]), v.wheelbase))
+        out.append((result, follows_path(lines[rear], sim.wheels()[rear]), v.wheelbase))
     return out
 
 

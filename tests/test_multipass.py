@@ -105,7 +105,7 @@ def test_two_vehicles_side_by_side_in_opposite_directions_are_not_one_vehicle(tm
     """Two bicycles driving exact parallels 1 m apart, one each way: geometrically two sides
     of a 1 m-track vehicle with a bicycle's wheelbase, but a rigid vehicle's sides travel
     together, so their opposite evidence must not become one vehicle's direction."""
-    from geoops.scenarios import BICYCLE, mapped_lines
+    from geoops.scenarios import BICYCLE, follows_path, mapped_lines
     from geoops.trails import SceneLine, ScenePass, _trail
 
     rng = np.random.default_rng(3)
@@ -118,8 +118,9 @@ def test_two_vehicles_side_by_side_in_opposite_directions_are_not_one_vehicle(tm
         for wheel, xy in lines.items():
             idx.append(len(scene.lines))
             path = sim.wheels()[wheel]
-            follows = bool(np.hypot(*(xy[0] - path[0])) < np.hypot(*(xy[-1] - path[0])))
-            scene.lines.append(SceneLine(xy + np.array(ORIGIN), k, wheel, "bicycle", follows))
+            scene.lines.append(
+                SceneLine(xy + np.array(ORIGIN), k, wheel, "bicycle", follows_path(xy, path))
+            )
         scene.passes.append(ScenePass(k, BICYCLE, 0, offset, back, tuple(idx)))
     src, out = str(tmp_path / "two.gpkg"), str(tmp_path / "two_out.gpkg")
     write_scene(scene, src, CRS)
