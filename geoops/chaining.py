@@ -62,10 +62,10 @@ WITNESS_M = 2.5
 WITNESS_STEP_M = 0.25
 
 
-def _end(xy: Array, at_start: bool) -> tuple[Array, Array, Array]:
+def _end(xy: Array, s: Array, at_start: bool) -> tuple[Array, Array, Array]:
     """An end point, the unit heading leaving the line there (a least-squares line through
-    the vertices within END_FIT_M of that end), and the innermost of those vertices."""
-    s = arc_length(xy)
+    the vertices within END_FIT_M of that end), and the innermost of those vertices; ``s``
+    is the line's arc length."""
     total = float(s[-1])
     reach = min(END_FIT_M, max(total / 3.0, 1e-9))
     pts = xy[s <= reach] if at_start else xy[s >= total - reach]
@@ -137,15 +137,18 @@ def chain_features(lines: list[Array | None]) -> list[list[int]]:
     """
     ends, heads, inner, owner, short = [], [], [], [], []
     for k, xy in enumerate(lines):
-        if xy is None or len(xy) < 3 or float(arc_length(xy)[-1]) < MIN_PIECE_M:
+        if xy is None or len(xy) < 3:
+            continue
+        s = arc_length(xy)
+        if s[-1] < MIN_PIECE_M:
             continue  # too little of a line to say where it leads
         for at_start in (True, False):
-            p, h, i = _end(xy, at_start)
+            p, h, i = _end(xy, s, at_start)
             ends.append(p)
             heads.append(h)
             inner.append(i)
             owner.append(k)
-            short.append(float(arc_length(xy)[-1]) < SHORT_PIECE_M)
+            short.append(bool(s[-1] < SHORT_PIECE_M))
     if len(ends) < 4:
         return []
     pts = np.asarray(ends)

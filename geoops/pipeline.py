@@ -23,7 +23,7 @@ import shapely
 from . import __version__
 from .axles import TRACK_MAX_M, Side, choose_axles, join_cost, spacing
 from .chaining import chain_features
-from .clean import CleanRut, clean_rut, join_parts
+from .clean import CleanRut, clean_line, clean_rut, join_parts
 from .crosscheck import steady_turn_wheelbase
 from .curves import Array, as_linestrings
 from .errors import BadInput, CrsError
@@ -398,21 +398,28 @@ def _make_axle_pass(
     return record, labels
 
 
-def _joined(parts: list[np.ndarray]) -> np.ndarray | None:
-    """A feature's parts joined into one line (for chaining pieces), None if degenerate."""
+def _joined(parts: list[np.ndarray]) -> tuple[np.ndarray, np.ndarray] | None:
+    """A feature's parts joined into one line with its gaps (see
+    :func:`geoops.clean.join_parts`), None if degenerate."""
     try:
-        return join_parts(parts)[0]
+        return join_parts(parts)
     except BadInput:
         return None
 
 
 def _clean_one(state: dict[str, Any], k: int) -> tuple[CleanRut, list[Leg]] | str:
-    """Clean input feature ``k`` and cut it into legs, or say why it cannot be used."""
+    """Clean rut ``k`` (its joined line when it is one feature, else its pieces' parts) and
+    cut it into legs, or say why it cannot be used."""
+    accuracy = state["accuracies"][k]
+    joined = state["joined"][k]
     try:
-        rut = clean_rut(state["local"][k], state["accuracies"][k])
+        if joined is None:
+            rut = clean_rut(state["local"][k], accuracy)
+        else:
+            rut = clean_line(joined[0], joined[1], accuracy=accuracy)
     except BadInput as exc:
         return exc.message
-    return rut, split_into_legs(k, rut, state["accuracies"][k])
+    return rut, split_into_legs(k, rut, accuracy)
 
 
 def analyze_layer(
@@ -440,10 +447,12 @@ def analyze_layer(
     # first piece; its source ids list every piece
     ids = list(layer.ids)
     pieces_of: dict[int, list[int]] = {}
-    for group in chain_features([_joined(parts) for parts in local]):
+    joined = [_joined(parts) for parts in local]
+    for group in chain_features([None if j is None else j[0] for j in joined]):
         first = group[0]
         pieces_of[first] = group
         local[first] = [p for k in group for p in local[k]]
+        joined[first] = None  # cleaned from the pieces' parts
         known = [a for a in (accuracies[k] for k in group) if a is not None]
         accuracies[first] = float(np.median(known)) if known else None
         ids[first] = ",".join(layer.ids[k] for k in group)
@@ -456,7 +465,7 @@ def analyze_layer(
         )
     merged = {k for g in pieces_of.values() for k in g[1:]}
     keys = [k for k in range(len(local)) if k not in merged]
-    state = {"local": local, "accuracies": accuracies}
+    state = {"local": local, "joined": joined, "accuracies": accuracies}
     for k, cleaned in zip(keys, pool_map(_clean_one, keys, state, workers), strict=True):
         if isinstance(cleaned, str):
             bad.append((k, cleaned))

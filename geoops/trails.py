@@ -349,9 +349,6 @@ def score_output(scene: Scene, path: str) -> SceneScore:
     in_pass = {k for v in by_pass.values() for k in v}
     distractors = scene.distractors()
     record_of = {k: n for n, (lines, _) in enumerate(pieces) for k in lines}
-    rut_pass = {
-        k: pid for pid, lines in by_pass.items() for k in lines
-    }
     decided = right = 0
     verdicts: dict[str, int] = {}
     for pid, verdict in zip(passes["pass_id"], passes["verdict"], strict=True):
@@ -360,7 +357,7 @@ def score_output(scene: Scene, path: str) -> SceneScore:
             continue
         decided += 1
         ok = True
-        for k in (k for k, p in rut_pass.items() if p == int(pid)):
+        for k in by_pass.get(int(pid), ()):
             line = scene.lines[k]
             out = pieces[record_of[k]][1]
             # the output line runs in the travel direction: it meets the piece's first vertex
