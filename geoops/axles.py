@@ -136,7 +136,7 @@ def join_cost(a: Side, b: Side) -> tuple[float, Spacing] | None:
     return (z / MAX_WHEELBASE_Z) ** 2 + (sp.spread / MAX_SPACING_SPREAD) ** 2, sp
 
 
-def choose_axles(n: int, costs: dict[tuple[int, int], float]) -> list[tuple[int, int]]:
+def choose_axles(costs: dict[tuple[int, int], float]) -> list[tuple[int, int]]:
     """Pairs of sides read as one vehicle: the most vehicles first (every side of a trail
     driven by several four-wheeled vehicles finds its partner), then the least total cost.
 
@@ -145,23 +145,21 @@ def choose_axles(n: int, costs: dict[tuple[int, int], float]) -> list[tuple[int,
     """
     if not costs:
         return []
-    adj: dict[int, set[int]] = {}
-    for a, b in costs:
-        adj.setdefault(a, set()).add(b)
-        adj.setdefault(b, set()).add(a)
-    seen: set[int] = set()
+    from scipy.sparse import coo_matrix
+    from scipy.sparse.csgraph import connected_components
+
+    keys = list(costs)
+    nodes = sorted({k for e in keys for k in e})
+    pos = {k: i for i, k in enumerate(nodes)}
+    rows = [pos[a] for a, _ in keys]
+    cols = [pos[b] for _, b in keys]
+    graph = coo_matrix(([1] * len(keys), (rows, cols)), shape=(len(nodes), len(nodes)))
+    _, label = connected_components(graph, directed=False)
+    groups: dict[int, dict[tuple[int, int], float]] = {}
+    for e, r in zip(keys, rows, strict=True):
+        groups.setdefault(int(label[r]), {})[e] = costs[e]
     out: list[tuple[int, int]] = []
-    for start in sorted(adj):
-        if start in seen:
-            continue
-        group, todo = set(), [start]
-        while todo:
-            k = todo.pop()
-            if k not in group:
-                group.add(k)
-                todo.extend(adj[k] - group)
-        seen |= group
-        edges = {e: c for e, c in costs.items() if e[0] in group}
+    for edges in groups.values():
         if len(edges) == 1:
             out.extend(edges)
             continue

@@ -270,7 +270,7 @@ def _axle_units(leg_passes: list[LegPass], legs: list[Leg]) -> list[tuple[int, .
             joined = join_cost(sides[a], sides[b])
             if joined is not None:
                 costs[(a, b)] = joined[0]
-    units: list[tuple[int, ...]] = list(choose_axles(len(leg_passes), costs))
+    units: list[tuple[int, ...]] = list(choose_axles(costs))
     used = {k for u in units for k in u}
     units.extend((i,) for i in range(len(leg_passes)) if i not in used)
     return sorted(units, key=lambda u: min(u))
