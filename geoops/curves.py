@@ -12,7 +12,8 @@ from dataclasses import dataclass, field
 import numpy as np
 import shapely
 from numpy.typing import NDArray
-from scipy.spatial import cKDTree
+
+from . import kernels
 
 Array = NDArray[np.float64]
 
@@ -230,23 +231,13 @@ def windowed_curvature(tangents: Array, step: float, half: int) -> Array:
     return np.asarray((heading[2 * half :] - heading[: -2 * half]) / (2 * half * step))
 
 
-#: reach (metres) within which another stretch of the same line makes a nearest-vertex query
-#: ambiguous; covers the misfits the solver measures before it truncates them
-CROWD_RADIUS_M = 1.5
-#: vertices checked per query near such a place
-CROWD_K = 4
-
-
 @dataclass
 class NearestOnPolyline:
-    """Nearest-point queries against one polyline, for many query points at once.
+    """Exact nearest-point queries against one polyline, for many query points at once.
 
-    The polyline should be densely sampled (uniform spacing much smaller than the distances of
-    interest along the line); each query checks the segments next to its nearest vertex, which
-    is exact where the line does not come back near itself. Where it does (a loop, a crossing:
-    vertices within :data:`CROWD_RADIUS_M` of another stretch of the line), the queries near
-    those vertices check the segments next to their four nearest vertices, so that a point by
-    one branch is never measured against the other.
+    The vertices are bucketed in a uniform grid once; each query scans the rings of cells
+    around it until no unseen segment can be closer (:mod:`geoops.kernels`), so a point by one
+    branch of a loop or crossing is never measured against the other.
 
     Examples
     --------
@@ -258,41 +249,34 @@ class NearestOnPolyline:
     """
 
     xy: Array
-    _tree: cKDTree = field(init=False, repr=False)
     _s: Array = field(init=False, repr=False)
 
     def __post_init__(self) -> None:
         self.xy = np.ascontiguousarray(self.xy, dtype=np.float64)
-        self._tree = cKDTree(self.xy)
         self._s = arc_length(self.xy)
-        self._ax, self._ay = self.xy[:-1, 0].copy(), self.xy[:-1, 1].copy()
-        self._abx = np.diff(self.xy[:, 0])
-        self._aby = np.diff(self.xy[:, 1])
+        self._x, self._y = self.xy[:, 0].copy(), self.xy[:, 1].copy()
+        self._abx = np.diff(self._x)
+        self._aby = np.diff(self._y)
         den = self._abx**2 + self._aby**2
         self._seg_len = np.sqrt(den)
         self._inv_den = np.where(den > 0, 1.0 / np.where(den > 0, den, 1.0), 0.0)
-        self._crowd: np.ndarray | None = None
-
-    @property
-    def crowded(self) -> np.ndarray:
-        """Per vertex, whether another stretch of the line (more than three times
-        :data:`CROWD_RADIUS_M` away along it) passes within that radius plus a segment."""
-        if self._crowd is None:
-            step = float(self._seg_len.max(initial=0.0))
-            reach = CROWD_RADIUS_M + step
-            pairs = self._tree.query_pairs(reach, output_type="ndarray")
-            crowd = np.zeros(len(self.xy), dtype=bool)
-            if len(pairs):
-                far = np.abs(self._s[pairs[:, 0]] - self._s[pairs[:, 1]]) > 3.0 * reach
-                crowd[pairs[far].ravel()] = True
-            self._crowd = crowd
-        return self._crowd
+        if len(self.xy) >= 2:
+            longest = float(self._seg_len.max())
+            self._x0, self._y0 = float(self._x.min()), float(self._y.min())
+            self._cell = kernels.grid_cell(self.xy, longest)
+            self._half_longest = 0.5 * longest
+            self._grids = (
+                kernels.build_grid(self._x, self._y, self._x0, self._y0, self._cell)
+                + kernels.build_grid(
+                    self._x, self._y, self._x0, self._y0, self._cell * kernels.COARSE
+                )
+            )
 
     @property
     def length(self) -> float:
         return float(self._s[-1])
 
-    def query(self, pts: Array, k: int = 1) -> tuple[Array, Array, Array]:
+    def query(self, pts: Array) -> tuple[Array, Array, Array]:
         """Distance to the line, arc-length position of the nearest point, and side.
 
         Returns
@@ -300,68 +284,55 @@ class NearestOnPolyline:
         dist, s, side
             ``side`` is +1 when the point lies left of the line (in vertex order), else -1.
         """
-        dist, s, side, _ = self.nearest(pts, k)
+        dist, s, side, _ = self.nearest(pts)
         return dist, s, side
 
-    def _closest(self, pts: Array, k: int) -> tuple[Array, Array, Array]:
-        """Squared distance, segment and fraction along it of the closest point (see the class
-        notes on crowded places)."""
-        n = len(self.xy)
+    def _closest(self, pts: Array) -> tuple[Array, Array, Array]:
+        """Squared distance, segment and fraction along it of the closest point."""
         if len(pts) == 0:
             return np.empty(0), np.empty(0, dtype=np.int64), np.empty(0)
-        _, idx = self._tree.query(pts, k=min(k, n))
-        idx = np.asarray(idx).reshape(len(pts), -1)
-        d2, seg, t = self._project(pts, idx)
-        if k < CROWD_K and n > 2:
-            again = np.flatnonzero(self.crowded[idx[:, 0]])
-            if len(again):
-                _, idx2 = self._tree.query(pts[again], k=min(CROWD_K, n))
-                d2b, segb, tb = self._project(pts[again], np.asarray(idx2).reshape(len(again), -1))
-                d2[again], seg[again], t[again] = d2b, segb, tb
-        return d2, seg, t
-
-    def _project(self, pts: Array, idx: np.ndarray) -> tuple[Array, Array, Array]:
-        """Closest point on the segments on either side of the vertices ``idx`` ``(m, k)``, in
-        one gather over an ``(m, 2k)`` candidate array (the solver's hot path)."""
-        n = len(self.xy)
-        seg = np.concatenate([idx - 1, idx], axis=1)
-        np.minimum(seg, n - 2, out=seg)
-        np.maximum(seg, 0, out=seg)
-        px, py = pts[:, :1], pts[:, 1:2]
-        ax, ay = self._ax[seg], self._ay[seg]
-        abx, aby = self._abx[seg], self._aby[seg]
-        t = ((px - ax) * abx + (py - ay) * aby) * self._inv_den[seg]
-        np.minimum(t, 1.0, out=t)
-        np.maximum(t, 0.0, out=t)
-        dx = px - ax - t * abx
-        dy = py - ay - t * aby
-        d2 = dx * dx + dy * dy
-        pick = np.argmin(d2, axis=1)[:, None]
-        return (
-            np.take_along_axis(d2, pick, 1)[:, 0],
-            np.take_along_axis(seg, pick, 1)[:, 0],
-            np.take_along_axis(t, pick, 1)[:, 0],
+        return kernels.closest(
+            np.ascontiguousarray(pts, dtype=np.float64), self._x, self._y, self._abx,
+            self._aby, self._inv_den, self._x0, self._y0, self._cell, self._half_longest,
+            *self._grids,
         )
 
-    def distance_and_position(self, pts: Array, k: int = 1) -> tuple[Array, Array]:
+    def distance_and_position(self, pts: Array) -> tuple[Array, Array]:
         """Distance to the line and arc-length position of the nearest point (the lean form
         of :meth:`query`)."""
         if len(self.xy) < 2:
-            d, s, _ = self.query(pts, k)
+            d, s, _ = self.query(pts)
             return d, s
-        d2, seg, t = self._closest(pts, k)
+        d2, seg, t = self._closest(pts)
         return np.sqrt(d2), self._s[seg] + t * self._seg_len[seg]
 
-    def nearest(self, pts: Array, k: int = 1) -> tuple[Array, Array, Array, Array]:
+    def foot_and_tangent(self, pts: Array) -> tuple[Array, Array, Array, Array]:
+        """Distance, arc-length position, nearest point ``(m, 2)`` and the unit tangent of the
+        line there ``(m, 2)``, for the solver's Gauss-Newton steps."""
+        if len(self.xy) < 2:
+            d, s, _, foot = self.nearest(pts)
+            return d, s, foot, np.tile([1.0, 0.0], (len(pts), 1))
+        d2, seg, t = self._closest(pts)
+        abx, aby = self._abx[seg], self._aby[seg]
+        foot = np.column_stack([self._x[seg] + t * abx, self._y[seg] + t * aby])
+        inv = 1.0 / np.maximum(self._seg_len[seg], 1e-12)
+        return (
+            np.sqrt(d2),
+            self._s[seg] + t * self._seg_len[seg],
+            foot,
+            np.column_stack([abx * inv, aby * inv]),
+        )
+
+    def nearest(self, pts: Array) -> tuple[Array, Array, Array, Array]:
         """Like :meth:`query`, plus the nearest points themselves, ``(m, 2)``."""
         m = len(pts)
         if len(self.xy) < 2:
             d = np.hypot(*(pts - self.xy[0]).T)
             foot0 = np.broadcast_to(self.xy[0], pts.shape).copy()
             return d, np.zeros(m), np.ones(m), foot0
-        d2, seg, t = self._closest(pts, k)
+        d2, seg, t = self._closest(pts)
         abx, aby = self._abx[seg], self._aby[seg]
-        ax, ay = self._ax[seg], self._ay[seg]
+        ax, ay = self._x[seg], self._y[seg]
         foot = np.column_stack([ax + t * abx, ay + t * aby])
         s = self._s[seg] + t * self._seg_len[seg]
         cross = abx * (pts[:, 1] - ay) - aby * (pts[:, 0] - ax)

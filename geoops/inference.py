@@ -247,6 +247,39 @@ class _Objective:
         mse = np.where(count >= self.need, mse, np.inf)
         return mse, count
 
+    def linearised(
+        self, length: float, free_shift: bool = False
+    ) -> tuple[float, int, Array | None, Array | None]:
+        """The misfit of :meth:`many` at one wheelbase (mse, samples used) with its gradient
+        and Gauss-Newton Hessian in the wheelbase (and, with ``free_shift``, in a lateral
+        shift added to the current one).
+
+        Each prediction's signed miss is measured along the target's normal at its nearest
+        point; moving the prediction by dL along the rear tangent (or by dc along the rear
+        normal) changes that miss by dL (u . n_target) (or dc (n . n_target)) to first order,
+        the target's own tangent direction carrying no miss. Truncated samples contribute
+        nothing to the slope."""
+        pts = self.points(np.array([length]))
+        d, s, foot, tangent = self.target.index.foot_and_tangent(pts)
+        valid = self.reaches(s)
+        used = int(valid.sum())
+        if used < self.need:
+            return float("inf"), used, None, None
+        d2 = d * d
+        mse = float(np.minimum(d2[valid], self.cap2).sum() / used - length**2 * self.tvar)
+        inner = valid & (d2 < self.cap2)
+        normal = np.column_stack([-tangent[inner, 1], tangent[inner, 0]])
+        miss = np.einsum("ij,ij->i", pts[inner] - foot[inner], normal)
+        cols = [np.einsum("ij,ij->i", self.u[inner], normal)]
+        if free_shift:
+            cols.append(np.einsum("ij,ij->i", self.n[inner], normal))
+        jac = np.column_stack(cols)
+        grad = 2.0 * (jac.T @ miss) / used
+        hess = 2.0 * (jac.T @ jac) / used
+        grad[0] -= 2.0 * length * self.tvar
+        hess[0, 0] -= 2.0 * self.tvar
+        return mse, used, grad, hess
+
 
 def _subsample(mask: np.ndarray, most: int) -> np.ndarray:
     idx = np.flatnonzero(mask)
@@ -255,25 +288,50 @@ def _subsample(mask: np.ndarray, most: int) -> np.ndarray:
     return idx
 
 
-#: wheelbases tried per refinement round, in one batch each: the first between the coarse
-#: grid's neighbours of its best value, each next between the neighbours of the last best (the
-#: misfit's mean over valid samples jumps a little as samples enter or leave the target's
-#: reach, so a parabola alone, over the first round, can miss by a round's spacing)
-_REFINE_POINTS = (9, 5)
+#: Gauss-Newton evaluations at most per fit, and the relative change of the wheelbase at which
+#: it stops
+_NEWTON_STEPS = 6
+_NEWTON_TOL = 1e-4
 
 
-def _parabola_vertex(x: Array, y: Array, k: int) -> float | None:
-    """Abscissa of the minimum of the parabola through points k-1, k, k+1 (None if not convex)."""
-    if k <= 0 or k >= len(x) - 1 or not np.isfinite(y[k - 1 : k + 2]).all():
-        return None
-    x0, x1, x2 = x[k - 1 : k + 2]
-    y0, y1, y2 = y[k - 1 : k + 2]
-    den = (x0 - x1) * (x0 - x2) * (x1 - x2)
-    a = (x2 * (y1 - y0) + x1 * (y0 - y2) + x0 * (y2 - y1)) / den
-    b = (x2 * x2 * (y0 - y1) + x1 * x1 * (y2 - y0) + x0 * x0 * (y1 - y2)) / den
-    if a <= 0:
-        return None
-    return float(np.clip(-b / (2 * a), x0, x2))
+def _newton(
+    obj: _Objective, start: float, bracket: tuple[float, float], free_shift: bool = False
+) -> tuple[float, float, int, float]:
+    """Refine a wheelbase (and, with ``free_shift``, a lateral shift) by Gauss-Newton steps on
+    the truncated misfit, each one batched query of all samples; the wheelbase stays within
+    ``bracket`` and the total shift within :data:`SHIFT_MAX_M`. A step that makes the fit
+    worse is halved back towards the best point. Returns the best (wheelbase, mse, samples
+    used, shift) seen; the objective is left at its starting shift."""
+    lo, hi = bracket
+    base_shift = obj.shift
+    x = np.array([start, 0.0] if free_shift else [start])
+    best_x, best = x.copy(), (float("nan"), float("inf"), 0, base_shift)
+    for _ in range(_NEWTON_STEPS):
+        obj.shift = base_shift + (float(x[1]) if free_shift else 0.0)
+        mse, used, grad, hess = obj.linearised(float(x[0]), free_shift)
+        if mse < best[1]:
+            best_x, best = x.copy(), (float(x[0]), mse, used, obj.shift)
+        elif np.isfinite(best[1]):
+            # worse than the best point: go half way back to it
+            x = 0.5 * (x + best_x)
+            continue
+        if grad is None or hess is None:
+            break
+        # a flat or concave misfit in the wheelbase (a straight) steps to the bracket's end
+        hess[0, 0] = max(hess[0, 0], 1e-12 * max(abs(grad[0]), 1e-12))
+        try:
+            step = -np.linalg.solve(hess, grad)
+        except np.linalg.LinAlgError:
+            break
+        new = best_x + step
+        new[0] = np.clip(new[0], lo, hi)
+        if free_shift:
+            new[1] = np.clip(base_shift + new[1], -SHIFT_MAX_M, SHIFT_MAX_M) - base_shift
+        if np.all(np.abs(new - best_x) <= _NEWTON_TOL * max(best_x[0], 1.0)):
+            break
+        x = new
+    obj.shift = base_shift
+    return best
 
 
 @dataclass
@@ -296,38 +354,26 @@ def _measure(obj: _Objective, profiled: bool) -> Callable[[Array], tuple[Array, 
     return obj.many
 
 
-def _fit(
-    h: _Hypothesis, bracket: tuple[float, float] | None = None, profiled: bool = False
-) -> tuple[float, float, int]:
-    """Best wheelbase of one hypothesis: a log grid on the coarse samples (unless a
-    ``bracket`` is given), then one batch of equally spaced wheelbases between the grid's
-    neighbours of its best value, a narrower round, and a parabola through the best three (a
-    few batched queries instead of a sequential search). ``profiled``: with the best lateral
-    shift for each wheelbase (see :meth:`_Objective.profiled`)."""
-    coarse, fine = _measure(h.coarse, profiled), _measure(h.fine, profiled)
-    if bracket is None:
-        mse, _ = coarse(_GRID)
-        if not np.isfinite(mse).any():
-            return float("nan"), float("inf"), 0
-        i = int(np.nanargmin(mse))
-        bracket = (float(_GRID[max(i - 1, 0)]), float(_GRID[min(i + 1, len(_GRID) - 1)]))
-    best = (float("nan"), float("inf"), 0)
-    vertex = None
-    for points in _REFINE_POINTS:
-        lengths = np.linspace(bracket[0], bracket[1], points)
-        vals, counts = fine(lengths)
-        if not np.isfinite(vals).any():
-            break
-        k = int(np.argmin(vals))
-        if vals[k] < best[1]:
-            best = (float(lengths[k]), float(vals[k]), int(counts[k]))
-        bracket = (float(lengths[max(k - 1, 0)]), float(lengths[min(k + 1, points - 1)]))
-        vertex = _parabola_vertex(lengths, vals, k)
-    if vertex is not None:
-        val, count = fine(np.array([vertex]))
-        if val[0] < best[1]:
-            best = (vertex, float(val[0]), int(count[0]))
-    return best
+def _fit(h: _Hypothesis, profiled: bool = False) -> tuple[float, float, int, float]:
+    """Best wheelbase of one hypothesis: a log grid on the coarse samples places it between
+    two grid neighbours, Gauss-Newton steps on all samples refine it (see :func:`_newton`).
+    ``profiled``: with a constant lateral shift fitted jointly (see
+    :meth:`_Objective.profiled`). Returns (wheelbase, mse, samples used, shift)."""
+    if profiled:
+        mse, _, shifts = h.coarse.profiled(_GRID)
+    else:
+        mse, _ = h.coarse.many(_GRID)
+        shifts = np.full(len(_GRID), h.coarse.shift)
+    if not np.isfinite(mse).any():
+        return float("nan"), float("inf"), 0, h.fine.shift
+    i = int(np.nanargmin(mse))
+    bracket = (float(_GRID[max(i - 1, 0)]), float(_GRID[min(i + 1, len(_GRID) - 1)]))
+    base = h.fine.shift
+    h.fine.shift = float(shifts[i])
+    try:
+        return _newton(h.fine, float(_GRID[i]), bracket, free_shift=profiled)
+    finally:
+        h.fine.shift = base
 
 
 def _fit_with_shift(
@@ -348,13 +394,8 @@ def _fit_with_shift(
     if not np.isfinite(mse):
         return length, mse, n_used, 0.0
     h.set_shift(0.0)
-    joint, _, _ = _fit(h, profiled=True)
-    if not np.isfinite(joint):
-        return length, mse, n_used, 0.0
-    shift = float(h.fine.profiled(np.array([joint]))[2][0])
+    length2, mse2, n2, shift = _fit(h, profiled=True)
     h.set_shift(shift)
-    vals, counts = h.fine.many(np.array([joint]))
-    length2, mse2, n2 = joint, float(vals[0]), int(counts[0])
     if not (np.isfinite(mse2) and mse2 < mse):
         h.set_shift(0.0)
         return length, mse, n_used, 0.0
@@ -389,49 +430,66 @@ def _correlation_length(miss: Array, spacing: float) -> float:
     return spacing * max(tau, 1.0)
 
 
-#: relative span and number of wheelbases of the interval's first, local grid; the global grid
-#: is evaluated only when the interval reaches past the local one
-_LOCAL_SPAN = 0.3
-_LOCAL_POINTS = 9
-_GLOBAL_GRID = np.geomspace(WHEELBASE_MIN_M, WHEELBASE_MAX_M, 40)
+#: widest 95 % interval, as a share of the wheelbase, for which the wheelbase counts as
+#: identified (reported, and a direction may be decided)
+IDENTIFIABLE_SHARE = 0.5
+#: relative offsets from the estimate of the interval's first grid, and of the points looked
+#: at next on a side where the first grid's end is still inside the bound
+_NEAR_STEPS = np.array([-0.3, -0.2, -0.1, 0.1, 0.2, 0.3])
+_FAR_STEPS = (0.4, IDENTIFIABLE_SHARE)
+#: wheelbases tried between the last grid point inside the bound and the first outside
+_CROSSING_POINTS = 3
 
 
 def _interval(
     obj: _Objective, length: float, mse0: float, scale: float, shifted: bool = False
-) -> tuple[float, float]:
-    """95 % profile interval of the wheelbase: where n_eff*(mse-mse0)/sigma^2 <= chi2(0.95, 1).
+) -> tuple[float, float] | None:
+    """95 % profile interval of the wheelbase: where n_eff*(mse-mse0)/sigma^2 <= chi2(0.95, 1),
+    or None when it is wider than :data:`IDENTIFIABLE_SHARE` of the wheelbase (or reaches
+    the end of the plausible range), so that the wheelbase is not identified.
 
-    The chi-square profile is evaluated on a local grid around the estimate; where it stays
-    inside the bound at a grid end, the global log grid is added; the crossing is then
-    refined on a few points between the last wheelbase inside and the first outside. With
-    ``shifted`` the lateral shift is profiled out too (it trades off against the wheelbase,
-    most of all on steady turns)."""
+    The chi-square profile is evaluated on a grid within 30 % of the estimate; a side whose
+    last point is still inside the bound is looked at further out, up to the identifiable
+    width; each crossing is then refined on a few wheelbases between the last point inside
+    and the first outside. With ``shifted`` the lateral shift is profiled out too (it trades
+    off against the wheelbase, most of all on steady turns)."""
     measure = _measure(obj, shifted)
     if shifted:
         obj.shift = 0.0
         mse0 = min(mse0, float(measure(np.array([length]))[0][0]))
-    grid = length * np.linspace(1 - _LOCAL_SPAN, 1 + _LOCAL_SPAN, _LOCAL_POINTS)
-    grid = grid[(grid >= WHEELBASE_MIN_M) & (grid <= WHEELBASE_MAX_M)]
-    mse, _ = measure(grid)
-    chi = scale * (mse - mse0)
+
+    def chi_at(grid: Array) -> Array:
+        return np.asarray(scale * (measure(grid)[0] - mse0))
+
+    def within(grid: Array) -> Array:
+        return grid[(grid >= WHEELBASE_MIN_M) & (grid <= WHEELBASE_MAX_M)]
+
+    grid = np.concatenate([within(length * (1 + _NEAR_STEPS)), [length]])
+    chi = np.concatenate([chi_at(grid[:-1]), [0.0]])
     inside = np.isfinite(chi) & (chi <= CHI2_95_1DOF)
-    if len(grid) == 0 or inside[0] or inside[-1]:
-        extra = _GLOBAL_GRID[(_GLOBAL_GRID < grid.min(initial=length))
-                             | (_GLOBAL_GRID > grid.max(initial=length))]
-        mse_x, _ = measure(extra)
-        grid = np.concatenate([grid, extra])
-        order = np.argsort(grid)
-        grid, chi = grid[order], np.concatenate([chi, scale * (mse_x - mse0)])[order]
-    low, high = _crossings(grid, chi, length)
-    # refine each crossing that lies between two grid points on a few wheelbases between them
-    refine = [np.linspace(a, b, 6)[1:-1] for a, b in _brackets(grid, chi, length)]
-    if refine:
-        fine = np.concatenate(refine)
-        mse_f, _ = measure(fine)
-        grid = np.concatenate([grid, fine])
-        chi = np.concatenate([chi, scale * (mse_f - mse0)])
-        order = np.argsort(grid)
-        low, high = _crossings(grid[order], chi[order], length)
+    far = [
+        length * (1 + sign * np.array(_FAR_STEPS))
+        for sign, end in ((-1, grid[:-1].min(initial=length)), (1, grid[:-1].max(initial=length)))
+        if end == length or inside[grid == end].all()
+    ]
+    if far:
+        extra = within(np.concatenate(far))
+        grid, chi = np.concatenate([grid, extra]), np.concatenate([chi, chi_at(extra)])
+    order = np.argsort(grid)
+    grid, chi = grid[order], chi[order]
+    lo_k, hi_k = _inside_run(grid, chi, length)
+    if lo_k == 0 or hi_k == len(grid) - 1:
+        return None  # inside the bound up to the last wheelbase looked at
+    refine = [
+        np.linspace(a, b, _CROSSING_POINTS + 2)[1:-1] for a, b in _brackets(grid, chi, length)
+    ]
+    fine = np.concatenate(refine)
+    grid = np.concatenate([grid, fine])
+    chi = np.concatenate([chi, chi_at(fine)])
+    order = np.argsort(grid)
+    low, high = _crossings(grid[order], chi[order], length)
+    if high - low > IDENTIFIABLE_SHARE * length:
+        return None
     return low, high
 
 
@@ -604,7 +662,7 @@ def solve_pair(first: CleanRut, second: CleanRut) -> PairResult:
             hyp = _Hypothesis(
                 *(_Objective(rear, target, along, idx, cap, usable[1 - rear_i]) for idx in samples)
             )
-            length, mse, n_used = _fit(hyp)
+            length, mse, n_used, _ = _fit(hyp)
             follows_rear_order = along > 0
             follows_first = follows_rear_order if rear_i == 0 else follows_rear_order == same_order
             fits.append(
@@ -696,9 +754,8 @@ def solve_pair(first: CleanRut, second: CleanRut) -> PairResult:
     )
     if misfit > tolerance:
         return base
-    low, high = _interval(best_obj, best.wheelbase, best.mse, scale, shift != 0.0)
-    open_interval = low <= WHEELBASE_MIN_M * 1.0001 or high >= WHEELBASE_MAX_M * 0.9999
-    identifiable = not at_bound and not open_interval and (high - low) <= 0.5 * best.wheelbase
+    interval = _interval(best_obj, best.wheelbase, best.mse, scale, shift != 0.0)
+    identifiable = not at_bound and interval is not None
     p_dir = max(p_first, 1.0 - p_first)
     if p_dir >= DECIDE_AT and not (
         curvature_varies(rear_track)
@@ -709,7 +766,8 @@ def solve_pair(first: CleanRut, second: CleanRut) -> PairResult:
         # change of curvature that only one line shows is survey error, not steering
         p_dir = 0.5
     rear_known = max(p_rear_first, 1 - p_rear_first) >= DECIDE_AT
-    if identifiable:
+    if identifiable and interval is not None:
+        low, high = interval
         base = replace(base, wheelbase=best.wheelbase, wheelbase_low=low, wheelbase_high=high)
     if identifiable and p_dir >= DECIDE_AT:
         return replace(

@@ -119,7 +119,7 @@ def test_nearest_point_of_a_vertex_is_itself(xy: np.ndarray, k: int) -> None:
     assume(len(xy) >= 2)
     q = NearestOnPolyline(xy)
     pt = xy[k % len(xy)][None, :]
-    dist, s, _ = q.query(pt, k=3)
+    dist, s, _ = q.query(pt)
     assert dist[0] <= 1e-6 * max(1.0, float(np.abs(xy).max()))
     assert 0.0 <= s[0] <= q.length * (1 + 1e-12)
 
