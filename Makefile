@@ -11,6 +11,8 @@ $(STAMP): pyproject.toml
 	test -x $(BIN)/python || $(PYTHON) -m venv $(VENV)
 	$(BIN)/python -m pip install --quiet --upgrade pip
 	$(BIN)/python -m pip install --quiet -e ".[service,dev]"
+	@# compile the solver's numba kernels once (cached on disk; otherwise the first run pays)
+	$(BIN)/python -c "import geoops.kernels"
 	touch $(STAMP)
 
 ## make run: analyse the bundled sample layers and print a summary

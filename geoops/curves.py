@@ -262,14 +262,14 @@ class NearestOnPolyline:
         self._inv_den = np.where(den > 0, 1.0 / np.where(den > 0, den, 1.0), 0.0)
         if len(self.xy) >= 2:
             longest = float(self._seg_len.max())
-            self._x0, self._y0 = float(self._x.min()), float(self._y.min())
-            self._cell = kernels.grid_cell(self.xy, longest)
-            self._half_longest = 0.5 * longest
-            self._grids = (
-                kernels.build_grid(self._x, self._y, self._x0, self._y0, self._cell)
-                + kernels.build_grid(
-                    self._x, self._y, self._x0, self._y0, self._cell * kernels.COARSE
-                )
+            x0, y0 = float(self._x.min()), float(self._y.min())
+            cell = kernels.grid_cell(self.xy, longest)
+            #: the kernels' view of the line (see :func:`geoops.kernels.closest`)
+            self.poly = (self._x, self._y, self._abx, self._aby, self._inv_den, self._s,
+                         self._seg_len)
+            self.geo = (x0, y0, cell, 0.5 * longest)
+            self.grid = kernels.build_grid(self._x, self._y, x0, y0, cell) + kernels.build_grid(
+                self._x, self._y, x0, y0, cell * kernels.COARSE
             )
 
     @property
@@ -291,11 +291,8 @@ class NearestOnPolyline:
         """Squared distance, segment and fraction along it of the closest point."""
         if len(pts) == 0:
             return np.empty(0), np.empty(0, dtype=np.int64), np.empty(0)
-        return kernels.closest(
-            np.ascontiguousarray(pts, dtype=np.float64), self._x, self._y, self._abx,
-            self._aby, self._inv_den, self._x0, self._y0, self._cell, self._half_longest,
-            *self._grids,
-        )
+        pts = np.ascontiguousarray(pts, dtype=np.float64)
+        return kernels.closest(pts, self.poly, self.geo, self.grid)
 
     def distance_and_position(self, pts: Array) -> tuple[Array, Array]:
         """Distance to the line and arc-length position of the nearest point (the lean form

@@ -17,6 +17,7 @@ from dataclasses import dataclass, replace
 
 import numpy as np
 
+from . import kernels
 from .clean import CleanRut
 from .curves import Array
 
@@ -176,10 +177,11 @@ class _Objective:
         self.idx = idx
         # target samples a prediction may land on: observed, and not where the two tracks are
         # mapped as one line (see _merged_stretches)
-        self.usable = target.has_data if usable is None else usable
-        self.base = rear.xy[idx]
-        self.u = along * rear.tangents[idx]
-        self.n = np.column_stack([-self.u[:, 1], self.u[:, 0]])  # left of the travel direction
+        self.usable = np.ascontiguousarray(target.has_data if usable is None else usable, bool)
+        self.base = np.ascontiguousarray(rear.xy[idx], dtype=np.float64)
+        self.u = np.ascontiguousarray(along * rear.tangents[idx], dtype=np.float64)
+        # left of the travel direction
+        self.n = np.ascontiguousarray(np.column_stack([-self.u[:, 1], self.u[:, 0]]))
         self.shift = 0.0
         # tangent noise adds L^2 var(theta) to the expected squared miss; remove it so that
         # noise does not pull the wheelbase towards zero (errors in variables)
@@ -210,42 +212,36 @@ class _Objective:
         valid &= d * d < self.cap2
         return valid, np.einsum("ij,ij->i", foot - pts, self.n)
 
+    def _sums(self, lengths: Array, mode: int) -> np.ndarray:
+        """The compiled sums of :func:`geoops.kernels.misfit_sums` for these wheelbases."""
+        index = self.target.index
+        if not hasattr(index, "poly"):  # a one-point target: nothing can land on it
+            out = np.zeros((len(lengths), 8))
+            return out
+        return kernels.misfit_sums(
+            self.base, self.u, self.n, float(self.shift), np.ascontiguousarray(lengths, float),
+            mode, index.poly, index.geo, index.grid, self.usable, float(self.target.step),
+            float(self.edge), float(self.cap2), SHIFT_MAX_M,
+        )
+
+    def _mse(self, sums: np.ndarray, lengths: Array) -> tuple[Array, Array]:
+        used = sums[:, kernels.USED]
+        mse = sums[:, kernels.SUM_SQ] / np.maximum(used, 1) - lengths**2 * self.tvar
+        return np.where(used >= self.need, mse, np.inf), used.astype(np.int64)
+
     def profiled(self, lengths: Array) -> tuple[Array, Array, Array]:
         """Like :meth:`many` with the best constant lateral shift profiled out per wheelbase:
         (mse, samples used, shift). The shift moves every prediction along the travel
         normal, so for a given wheelbase the best one is the mean signed lateral miss (within
         the truncation and :data:`SHIFT_MAX_M`); a wheelbase and a shift are fitted jointly in
         one batch instead of one after the other."""
-        m = len(self.base)
-        pts = self.points(lengths)
-        d, s, _, foot = self.target.index.nearest(pts)
-        valid = self.reaches(s)
-        n = np.tile(self.n, (len(lengths), 1))
-        miss = np.einsum("ij,ij->i", foot - pts, n).reshape(len(lengths), m)
-        valid = valid.reshape(len(lengths), m)
-        close = valid & (d.reshape(len(lengths), m) ** 2 < self.cap2)
-        count = close.sum(axis=1)
-        shift = np.clip(
-            (miss * close).sum(axis=1) / np.maximum(count, 1), -SHIFT_MAX_M, SHIFT_MAX_M
-        )
-        r = np.minimum((miss - shift[:, None]) ** 2, self.cap2)
-        used = valid.sum(axis=1)
-        mse = (r * valid).sum(axis=1) / np.maximum(used, 1) - lengths**2 * self.tvar
-        mse = np.where(used >= self.need, mse, np.inf)
-        return mse, used, self.shift + shift
+        sums = self._sums(lengths, kernels.PROFILED)
+        mse, used = self._mse(sums, lengths)
+        return mse, used, self.shift + sums[:, kernels.SHIFT]
 
     def many(self, lengths: Array) -> tuple[Array, Array]:
-        m = len(self.base)
-        pts = self.points(lengths)
-        d, s = self.target.index.distance_and_position(pts)
-        valid = self.reaches(s)
-        r = np.minimum(d * d, self.cap2)
-        valid = valid.reshape(len(lengths), m)
-        r = r.reshape(len(lengths), m)
-        count = valid.sum(axis=1)
-        mse = (r * valid).sum(axis=1) / np.maximum(count, 1) - lengths**2 * self.tvar
-        mse = np.where(count >= self.need, mse, np.inf)
-        return mse, count
+        """Mean truncated squared miss and samples used, per wheelbase."""
+        return self._mse(self._sums(lengths, kernels.PLAIN), lengths)
 
     def linearised(
         self, length: float, free_shift: bool = False
@@ -254,28 +250,27 @@ class _Objective:
         and Gauss-Newton Hessian in the wheelbase (and, with ``free_shift``, in a lateral
         shift added to the current one).
 
-        Each prediction's signed miss is measured along the target's normal at its nearest
-        point; moving the prediction by dL along the rear tangent (or by dc along the rear
-        normal) changes that miss by dL (u . n_target) (or dc (n . n_target)) to first order,
-        the target's own tangent direction carrying no miss. Truncated samples contribute
-        nothing to the slope."""
-        pts = self.points(np.array([length]))
-        d, s, foot, tangent = self.target.index.foot_and_tangent(pts)
-        valid = self.reaches(s)
-        used = int(valid.sum())
-        if used < self.need:
+        Each prediction's signed miss e is measured along the target's normal at its nearest
+        point; moving the prediction by dL along the rear tangent u (or by dc along the rear
+        normal n) changes that miss by dL (u . n_target) (or dc (n . n_target)) to first
+        order, the target's own tangent direction carrying no miss. Truncated samples
+        contribute nothing to the slope."""
+        lengths = np.array([length])
+        sums = self._sums(lengths, kernels.NEWTON)
+        mse_a, used_a = self._mse(sums, lengths)
+        mse, used = float(mse_a[0]), int(used_a[0])
+        if not np.isfinite(mse):
             return float("inf"), used, None, None
-        d2 = d * d
-        mse = float(np.minimum(d2[valid], self.cap2).sum() / used - length**2 * self.tvar)
-        inner = valid & (d2 < self.cap2)
-        normal = np.column_stack([-tangent[inner, 1], tangent[inner, 0]])
-        miss = np.einsum("ij,ij->i", pts[inner] - foot[inner], normal)
-        cols = [np.einsum("ij,ij->i", self.u[inner], normal)]
+        k = kernels
+        row = sums[0]
         if free_shift:
-            cols.append(np.einsum("ij,ij->i", self.n[inner], normal))
-        jac = np.column_stack(cols)
-        grad = 2.0 * (jac.T @ miss) / used
-        hess = 2.0 * (jac.T @ jac) / used
+            grad = np.array([row[k.GE], row[k.HE]])
+            hess = np.array([[row[k.GG], row[k.GH]], [row[k.GH], row[k.HH]]])
+        else:
+            grad = np.array([row[k.GE]])
+            hess = np.array([[row[k.GG]]])
+        grad = 2.0 * grad / used
+        hess = 2.0 * hess / used
         grad[0] -= 2.0 * length * self.tvar
         hess[0, 0] -= 2.0 * self.tvar
         return mse, used, grad, hess

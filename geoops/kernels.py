@@ -88,140 +88,203 @@ def build_grid(x, y, x0, y0, cell):
     return nx, ny, start, items
 
 
-@njit(nogil=True, inline="always")
-def _scan_cell(c, px, py, x, y, abx, aby, inv_den, start, items, half_longest, best, best_seg,
-               best_t):
-    """Project the query onto both segments of every vertex bucketed in cell ``c`` that is
-    near enough to hold a closer point (within the best distance plus half a segment)."""
-    nseg = len(abx)
-    for k in range(start[c], start[c + 1]):
-        v = items[k]
-        vx = px - x[v]
-        vy = py - y[v]
-        if best < np.inf:
-            bound = np.sqrt(best) + half_longest
-            if vx * vx + vy * vy > bound * bound:
-                continue
-        for sg in range(v - 1, v + 1):
-            if sg < 0 or sg >= nseg:
-                continue
-            t = ((px - x[sg]) * abx[sg] + (py - y[sg]) * aby[sg]) * inv_den[sg]
-            if t < 0.0:
-                t = 0.0
-            elif t > 1.0:
-                t = 1.0
-            dx = px - x[sg] - t * abx[sg]
-            dy = py - y[sg] - t * aby[sg]
-            d2 = dx * dx + dy * dy
-            if d2 < best or (d2 == best and sg < best_seg):
-                best = d2
-                best_seg = sg
-                best_t = t
-    return best, best_seg, best_t
-
-
-@njit(nogil=True, inline="always")
-def _ring(r, cx, cy, nx, ny, px, py, x, y, abx, aby, inv_den, start, items, half_longest, best,
-          best_seg, best_t):
-    """Scan the cells at Chebyshev distance ``r`` from cell ``(cx, cy)`` of one grid."""
-    ylo = max(cy - r, 0)
-    yhi = min(cy + r, ny - 1)
-    xlo = max(cx - r, 0)
-    xhi = min(cx + r, nx - 1)
-    for gy in range(ylo, yhi + 1):
-        if gy == cy - r or gy == cy + r:
-            for gx in range(xlo, xhi + 1):
-                best, best_seg, best_t = _scan_cell(
-                    gy * nx + gx, px, py, x, y, abx, aby, inv_den, start, items, half_longest,
-                    best, best_seg, best_t)
-        else:
-            if 0 <= cx - r < nx:
-                best, best_seg, best_t = _scan_cell(
-                    gy * nx + cx - r, px, py, x, y, abx, aby, inv_den, start, items,
-                    half_longest, best, best_seg, best_t)
-            if r > 0 and 0 <= cx + r < nx:
-                best, best_seg, best_t = _scan_cell(
-                    gy * nx + cx + r, px, py, x, y, abx, aby, inv_den, start, items,
-                    half_longest, best, best_seg, best_t)
-    return best, best_seg, best_t
-
-
-@njit(nogil=True, inline="always")
-def _cell_of(p, origin, cell):
-    """Cell coordinate (clamped far off the grid) and the position within it, in cells."""
-    f = (p - origin) / cell
-    if not np.isfinite(f):
-        f = 0.0
-    f = min(max(f, -1e9), 1e9)
-    return int(np.floor(f)), f
-
-
 #: rings of the fine grid scanned before the search moves to the coarse one
 FINE_RINGS = 2
 #: coarse cell, in fine cells
 COARSE = 8
 
 
-@_compiled("Tuple((float64[::1], int64[::1], float64[::1]))(float64[:, ::1], float64[::1], "
-           "float64[::1], float64[::1], float64[::1], float64[::1], float64, float64, float64, "
-           "float64, int64, int64, int64[::1], int64[::1], int64, int64, int64[::1], "
-           "int64[::1])")
-def closest(pts, x, y, abx, aby, inv_den, x0, y0, cell, half_longest, nx, ny, start, items,
-            nx2, ny2, start2, items2):
+@njit(nogil=True, inline="always")
+def _search(px, py, x, y, abx, aby, inv_den, x0, y0, size, half_longest, gnx, gny, st, it,
+            most_rings, best, best_seg, best_t):  # noqa: E501
+    """Scan rings of one grid's cells around ``(px, py)``, each vertex bucketed there
+    projecting the query onto its two segments, until no unseen segment can be closer (or
+    ``most_rings`` rings beyond the first have been scanned). Returns the best (squared
+    distance, segment, fraction) and whether it is final."""
+    nseg = len(abx)
+    # a vertex farther than this cannot hold a closer point (half a segment beyond the best)
+    bound2 = np.inf
+    if best < np.inf:
+        bound2 = (np.sqrt(best) + half_longest) ** 2
+    fx = (px - x0) / size
+    fy = (py - y0) / size
+    # far off the grid (or not a number): clamped so that the cell index stays an int
+    fx = min(max(fx, -1e9), 1e9) if np.isfinite(fx) else 0.0
+    fy = min(max(fy, -1e9), 1e9) if np.isfinite(fy) else 0.0
+    cx = int(np.floor(fx))
+    cy = int(np.floor(fy))
+    # Chebyshev distance (in cells) from the query's cell to the grid
+    r = max(0, -cx, cx - (gnx - 1), -cy, cy - (gny - 1))
+    last = r + most_rings
+    while r <= last:
+        for gy in range(max(cy - r, 0), min(cy + r, gny - 1) + 1):
+            edge_row = gy == cy - r or gy == cy + r
+            gx = max(cx - r, 0) if edge_row else cx - r
+            gx_end = min(cx + r, gnx - 1)
+            while gx <= gx_end:
+                if gx >= 0:
+                    c = gy * gnx + gx
+                    for k in range(st[c], st[c + 1]):
+                        v = it[k]
+                        vx = px - x[v]
+                        vy = py - y[v]
+                        if vx * vx + vy * vy > bound2:
+                            continue
+                        for sg in range(max(v - 1, 0), min(v + 1, nseg)):
+                            t = ((px - x[sg]) * abx[sg] + (py - y[sg]) * aby[sg]) * inv_den[sg]
+                            t = min(max(t, 0.0), 1.0)
+                            dx = px - x[sg] - t * abx[sg]
+                            dy = py - y[sg] - t * aby[sg]
+                            d2 = dx * dx + dy * dy
+                            if d2 < best or (d2 == best and sg < best_seg):
+                                best = d2
+                                best_seg = sg
+                                best_t = t
+                                bound2 = (np.sqrt(best) + half_longest) ** 2
+                # edge rows: every cell; inner rows: the ring's two side cells
+                if edge_row or r == 0:
+                    gx += 1
+                elif gx == cx - r:
+                    gx += 2 * r
+                else:
+                    gx = gx_end + 1
+        if cx - r <= 0 and cx + r >= gnx - 1 and cy - r <= 0 and cy + r >= gny - 1:
+            return best, best_seg, best_t, True  # the whole grid has been scanned
+        if best < np.inf:
+            # every point within this distance of the query lies in the rings scanned
+            reach = size * min(fx - (cx - r), cx + r + 1 - fx, fy - (cy - r), cy + r + 1 - fy)
+            if reach >= np.sqrt(best) + half_longest:
+                return best, best_seg, best_t, True
+        r += 1
+    return best, best_seg, best_t, False
+
+
+@njit(nogil=True, inline="always")
+def _nearest(px, py, x, y, abx, aby, inv_den, x0, y0, cell, half_longest, nx, ny, start, items,
+             nx2, ny2, start2, items2):  # noqa: E501
+    """Squared distance, segment and fraction along it of the point of the polyline nearest to
+    ``(px, py)`` (see :func:`closest`)."""
+    best, best_seg, best_t, done = _search(
+        px, py, x, y, abx, aby, inv_den, x0, y0, cell, half_longest, nx, ny, start, items,
+        FINE_RINGS, np.inf, 0, 0.0)
+    if not done:
+        best, best_seg, best_t, done = _search(
+            px, py, x, y, abx, aby, inv_den, x0, y0, cell * COARSE, half_longest, nx2, ny2,
+            start2, items2, 1 << 40, best, best_seg, best_t)
+    return best, best_seg, best_t
+
+
+#: the numba types of a polyline's arrays and of its two bucket grids, as passed to the kernels
+_POLY = "UniTuple(float64[::1], 7)"
+_GEO = "UniTuple(float64, 4)"
+_GRID = "Tuple((int64, int64, int64[::1], int64[::1], int64, int64, int64[::1], int64[::1]))"
+
+
+@_compiled(f"Tuple((float64[::1], int64[::1], float64[::1]))(float64[:, ::1], {_POLY}, {_GEO}, "
+           f"{_GRID})")
+def closest(pts, poly, geo, grid):
     """Per query point: squared distance to the polyline, the segment holding the nearest
     point and the fraction along it (ties go to the lower segment).
 
-    ``x, y`` are the ``n`` vertices; ``abx, aby, inv_den`` describe the ``n - 1`` segments
-    (vector and inverse squared length, 0 for a zero-length segment). The vertices are
-    bucketed twice from the same origin: in cells of ``cell`` (``nx, ny, start, items``) and
-    of ``COARSE * cell`` (``nx2, ny2, start2, items2``); a query still unresolved after
+    ``poly`` holds the ``n`` vertices ``x, y``, the ``n - 1`` segments' vectors ``abx, aby``
+    and inverse squared lengths (0 for a zero-length segment), the vertices' arc length and
+    the segments' lengths; ``geo`` the grid origin ``x0, y0``, the fine cell and half the
+    longest segment. The vertices are bucketed twice from the same origin (``grid``): in fine
+    cells and in cells :data:`COARSE` times larger; a query still unresolved after
     :data:`FINE_RINGS` rings of fine cells (far from the line) continues on the coarse grid,
     where fewer, fuller cells cover the same distance."""
+    x, y, abx, aby, inv_den, _, _ = poly
+    x0, y0, cell, half_longest = geo
+    nx, ny, start, items, nx2, ny2, start2, items2 = grid
     m = pts.shape[0]
     out_d2 = np.empty(m)
     out_seg = np.empty(m, dtype=np.int64)
     out_t = np.empty(m)
     for q in range(m):
-        px = pts[q, 0]
-        py = pts[q, 1]
-        best = np.inf
-        best_seg = 0
-        best_t = 0.0
-        done = False
-        for level in range(2):
-            size = cell if level == 0 else cell * COARSE
-            gnx = nx if level == 0 else nx2
-            gny = ny if level == 0 else ny2
-            cx, fx = _cell_of(px, x0, size)
-            cy, fy = _cell_of(py, y0, size)
-            # Chebyshev distance (in cells) from the query's cell to the grid
-            r = max(0, -cx, cx - (gnx - 1), -cy, cy - (gny - 1))
-            first = r
-            while True:
-                if level == 0:
-                    best, best_seg, best_t = _ring(
-                        r, cx, cy, nx, ny, px, py, x, y, abx, aby, inv_den, start, items,
-                        half_longest, best, best_seg, best_t)
-                else:
-                    best, best_seg, best_t = _ring(
-                        r, cx, cy, nx2, ny2, px, py, x, y, abx, aby, inv_den, start2, items2,
-                        half_longest, best, best_seg, best_t)
-                if cx - r <= 0 and cx + r >= gnx - 1 and cy - r <= 0 and cy + r >= gny - 1:
-                    done = True  # the whole grid has been scanned
-                    break
-                if best < np.inf:
-                    # every point within this distance of the query lies in the rings scanned
-                    reach = size * min(fx - (cx - r), cx + r + 1 - fx, fy - (cy - r),
-                                       cy + r + 1 - fy)
-                    if reach >= np.sqrt(best) + half_longest:
-                        done = True
-                        break
-                r += 1
-                if level == 0 and r - first > FINE_RINGS:
-                    break
-            if done:
-                break
-        out_d2[q] = best
-        out_seg[q] = best_seg
-        out_t[q] = best_t
+        out_d2[q], out_seg[q], out_t[q] = _nearest(
+            pts[q, 0], pts[q, 1], x, y, abx, aby, inv_den, x0, y0, cell, half_longest,
+            nx, ny, start, items, nx2, ny2, start2, items2)
     return out_d2, out_seg, out_t
+
+
+#: what :func:`misfit_sums` accumulates per wheelbase: plain, with the Gauss-Newton sums, or
+#: with the best lateral shift profiled out
+PLAIN, NEWTON, PROFILED = 0, 1, 2
+#: its output columns
+USED, SUM_SQ, GE, GG, HE, GH, HH, SHIFT = range(8)
+
+
+@_compiled(f"float64[:, ::1](float64[:, ::1], float64[:, ::1], float64[:, ::1], float64, "
+           f"float64[::1], int64, {_POLY}, {_GEO}, {_GRID}, boolean[::1], float64, float64, "
+           f"float64, float64)")
+def misfit_sums(base, u, nrm, shift, lengths, mode, poly, geo, grid, usable, step, edge, cap2,
+                shift_max):
+    """Per wheelbase L in ``lengths``: sums over the rear samples of the misses of the
+    predicted front points ``base + shift * nrm + L * u`` against the target polyline.
+
+    A prediction counts (column USED) where its nearest point lies on the target more than
+    ``edge`` from either end, on a sample marked ``usable`` (the target is ``step`` apart
+    samples); SUM_SQ sums its squared distance truncated at ``cap2``. NEWTON adds, over the
+    untruncated ones, the sums of e*g, g*g, h*e, g*h and h*h, with e the signed miss along
+    the target's normal n_t, g = u . n_t and h = nrm . n_t (the miss's slopes in L and in a
+    lateral shift). PROFILED replaces the squared distance by the squared lateral miss along
+    ``nrm`` less the best constant shift (their mean over the untruncated predictions,
+    within +- ``shift_max``), reported in column SHIFT."""
+    x, y, abx, aby, inv_den, s_cum, seg_len = poly
+    x0, y0, cell, half_longest = geo
+    nx, ny, start, items, nx2, ny2, start2, items2 = grid
+    m = base.shape[0]
+    k = lengths.shape[0]
+    tlen = s_cum[-1]
+    last = usable.shape[0] - 1
+    out = np.zeros((k, 8))
+    lateral = np.empty(m)
+    ok = np.empty(m, dtype=np.bool_)
+    for j in range(k):
+        L = lengths[j]
+        close_sum = 0.0
+        close_n = 0
+        for i in range(m):
+            px = base[i, 0] + shift * nrm[i, 0] + L * u[i, 0]
+            py = base[i, 1] + shift * nrm[i, 1] + L * u[i, 1]
+            d2, sg, t = _nearest(px, py, x, y, abx, aby, inv_den, x0, y0, cell, half_longest,
+                                 nx, ny, start, items, nx2, ny2, start2, items2)
+            s = s_cum[sg] + t * seg_len[sg]
+            at = int(np.rint(s / step))
+            at = min(max(at, 0), last)
+            valid = s > edge and s < tlen - edge and usable[at]
+            ok[i] = valid
+            if not valid:
+                continue
+            out[j, USED] += 1.0
+            inner = d2 < cap2
+            fx = x[sg] + t * abx[sg]
+            fy = y[sg] + t * aby[sg]
+            if mode == PROFILED:
+                lateral[i] = (fx - px) * nrm[i, 0] + (fy - py) * nrm[i, 1]
+                if inner:
+                    close_sum += lateral[i]
+                    close_n += 1
+                continue
+            out[j, SUM_SQ] += min(d2, cap2)
+            if mode == NEWTON and inner:
+                inv = 1.0 / max(seg_len[sg], 1e-12)
+                tnx = -aby[sg] * inv
+                tny = abx[sg] * inv
+                e = (px - fx) * tnx + (py - fy) * tny
+                g = u[i, 0] * tnx + u[i, 1] * tny
+                h = nrm[i, 0] * tnx + nrm[i, 1] * tny
+                out[j, GE] += e * g
+                out[j, GG] += g * g
+                out[j, HE] += h * e
+                out[j, GH] += g * h
+                out[j, HH] += h * h
+        if mode == PROFILED:
+            c = close_sum / max(close_n, 1)
+            c = min(max(c, -shift_max), shift_max)
+            out[j, SHIFT] = c
+            for i in range(m):
+                if ok[i]:
+                    r = lateral[i] - c
+                    out[j, SUM_SQ] += min(r * r, cap2)
+    return out

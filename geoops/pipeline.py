@@ -440,8 +440,14 @@ def analyze_layer(
     bad: list[tuple[int, str]] = []
     length_m = 0.0
     local: list[list[np.ndarray]] = []
+    # one transformation for the whole layer (a call per part costs more than the work)
+    flat = [p for parts in layer.parts for p in parts]
+    if flat:
+        lx, ly = frame.to_local(xy_all[:, 0], xy_all[:, 1])
+        pieces = np.split(np.column_stack([lx, ly]), np.cumsum([len(p) for p in flat])[:-1])
+    it = iter(pieces if flat else [])
     for parts in layer.parts:
-        local.append([np.column_stack(frame.to_local(p[:, 0], p[:, 1])) for p in parts])
+        local.append([next(it) for _ in parts])
         length_m = add_length(length_m, local[-1])  # time and memory grow with length: bounded
     # pieces of one rut mapped as separate features are cleaned as one rut, named by its
     # first piece; its source ids list every piece
