@@ -30,6 +30,15 @@ DECIDE_AT = 0.95
 CHI2_95_1DOF = 3.841458820694124  # source: chi-square distribution table, 1 dof, p = 0.95
 #: residual floor (m): digitising and numeric precision  # common practice
 RESIDUAL_FLOOR_M = 0.005
+#: farthest a front track can part from its rear track, metres: off-tracking is about
+#: L^2 / (2 R), and a 6 m wheelbase on an 8 m radius gives 2.25 m  # common practice
+#: (SAE J695 terms)
+OFFTRACK_MAX_M = 2.5
+#: share of either track's overlap allowed farther than that from the other (plus three sigma
+#: of the pair's noise): front and rear tracks of one vehicle stay within it all along; two
+#: lines that run together for a stretch and then apart are two vehicles. On bench/accuracy.py's
+#: scenarios no fitting pair exceeds 1 % and lines laid over each other exceed 9 %.
+PARTED_SHARE = 0.05
 #: largest lateral shift between same-side front and rear tracks, metres: half the largest
 #: front/rear track difference of a tractor (1.5-2.3 m adjustable track)  # common practice
 SHIFT_MAX_M = 0.5
@@ -598,13 +607,17 @@ def _sigmoid(x: float) -> float:
     return float(1.0 / (1.0 + np.exp(-np.clip(x, -MAX_LOG_ODDS, MAX_LOG_ODDS))))
 
 
-def solve_pair(first: CleanRut, second: CleanRut) -> PairResult:
+def solve_pair(first: CleanRut, second: CleanRut, legs: bool = False) -> PairResult:
     """Test every front/rear hypothesis for two tracks and return a verdict.
 
     Parameters
     ----------
     first, second
         Cleaned tracks in one local metric frame; their vertex order carries no meaning.
+    legs
+        True when either track is a leg of a line cut at its reversals: the tight curves of a
+        manoeuvre bring stretches of the other line's legs near it that its partner leg never
+        runs alongside, so the parting test (:data:`PARTED_SHARE`) does not apply.
 
     Returns
     -------
@@ -636,6 +649,10 @@ def solve_pair(first: CleanRut, second: CleanRut) -> PairResult:
     if overlap0.sum() < 8 or overlap1.sum() < 8 or align == 0.0:
         return empty
     same_order = align > 0
+    apart = OFFTRACK_MAX_M + 3.0 * sigma_pair
+    parted = max(np.mean(dist0[overlap0] > apart), np.mean(dist1[overlap1] > apart))
+    if not legs and parted > PARTED_SHARE:
+        return replace(empty, reason="tracks_part", same_order=same_order)
     merged = (
         _merged_stretches(first, dist0, overlap0, sigma_pair),
         _merged_stretches(second, dist1, overlap1, sigma_pair),

@@ -16,12 +16,11 @@ import shapely
 
 from .clean import CleanRut
 from .curves import as_linestrings
-from .inference import SHIFT_MAX_M, PairResult, solve_pair
+from .inference import OFFTRACK_MAX_M, SHIFT_MAX_M, PairResult, solve_pair
 from .parallel import pool_map
 
-#: largest distance between a rear track and its front track, metres. Off-tracking is about
-#: L^2 / (2 R): 6 m wheelbase on a 8 m radius gives 2.25 m.  # common practice (SAE J695 terms)
-NEIGHBOUR_DISTANCE_M = 2.5
+#: largest distance between a rear track and its front track, metres (off-tracking)
+NEIGHBOUR_DISTANCE_M = OFFTRACK_MAX_M
 #: share of the shorter rut that must lie within that distance of the other
 MIN_SHARED_FRACTION = 0.3
 #: front and rear tracks of one side coincide wherever the vehicle runs straight, up to the
@@ -117,8 +116,8 @@ def _rank(result: PairResult, shared: float) -> float:
 
 
 def _judge(state: dict[str, Any], pair: tuple[int, int]) -> PairResult:
-    ruts = state["ruts"]
-    return solve_pair(ruts[pair[0]], ruts[pair[1]])
+    ruts, cut = state["ruts"], state["cut"]
+    return solve_pair(ruts[pair[0]], ruts[pair[1]], legs=pair[0] in cut or pair[1] in cut)
 
 
 def choose_pairs(
@@ -135,7 +134,14 @@ def choose_pairs(
     if same_line is not None:
         cands = [c for c in cands if same_line[c.i] != same_line[c.j]]
     todo = [c for c in cands if c.may_be_front_rear(ruts)]
-    results = pool_map(_judge, [(c.i, c.j) for c in todo], {"ruts": ruts}, workers)
+    # legs of a line cut at its reversals (see solve_pair's ``legs``)
+    per_line: dict[int, int] = {}
+    for k in same_line or []:
+        per_line[k] = per_line.get(k, 0) + 1
+    cut = {k for k, line in enumerate(same_line or []) if per_line[line] > 1}
+    results = pool_map(
+        _judge, [(c.i, c.j) for c in todo], {"ruts": ruts, "cut": cut}, workers
+    )
     judged = [(c.i, c.j, c.shared, r) for c, r in zip(todo, results, strict=True)]
     fitting = [c for c in judged if c[3].verdict != "not_a_pair"]
     fitting.sort(key=lambda c: _rank(c[3], c[2]))
