@@ -114,6 +114,7 @@ class Unrelated:
     noise: float
     verdict: str
     candidate: bool  # the pipeline would hand this pair to the solver (spacing pre-check)
+    model: str = "white"
 
 
 class Progress:
@@ -265,10 +266,12 @@ def _overlay(
     return lambda xy: np.asarray((xy - cb) @ rot.T + ca)
 
 
-def run_unrelated(noise: float, seed: int) -> Unrelated:
+def run_unrelated(noise: float, seed: int, model: str = "white") -> Unrelated:
     """Two independent random smooth passes (random vehicles, one random wheel track each),
     the second laid over the first where a 15-40 m stretch of each fits best, both mapped
-    with white noise; judged by ``solve_pair``. They must never make a fitting pair."""
+    with white noise (``model`` gnss: a third of it white plus a slowly wandering error of
+    the full sigma, as in :func:`run_case`); judged by ``solve_pair``. They must never make a
+    fitting pair."""
     rng = np.random.default_rng(seed)
     sims = []
     for _ in range(2):
@@ -278,13 +281,15 @@ def run_unrelated(noise: float, seed: int) -> Unrelated:
         sims.append((sim, list(wheels)[int(rng.integers(len(wheels)))]))
     (sa, ka), (sb, kb) = sims
     move = _overlay(sa.wheels()[ka], sb.wheels()[kb], rng, float(rng.uniform(15.0, 40.0)))
-    line_a = mapped_lines(sa, noise, SPACING, rng, which=[ka])[ka]
-    # white noise is isotropic: mapping first and moving the mapped line is the same thing
-    line_b = move(mapped_lines(sb, noise, SPACING, rng, which=[kb])[kb])
+    kw = {"drift_m": noise, "drift_corr_m": 20.0} if model == "gnss" else {}
+    white = noise / 3 if model == "gnss" else noise
+    line_a = mapped_lines(sa, white, SPACING, rng, which=[ka], **kw)[ka]
+    # the error is isotropic: mapping first and moving the mapped line is the same thing
+    line_b = move(mapped_lines(sb, white, SPACING, rng, which=[kb], **kw)[kb])
     ruts = [clean_rut([line_a]), clean_rut([line_b])]
     res = solve_pair(*ruts)
     cands = candidate_pairs(ruts)
-    return Unrelated(noise, res.verdict, any(c.may_be_front_rear(ruts) for c in cands))
+    return Unrelated(noise, res.verdict, any(c.may_be_front_rear(ruts) for c in cands), model)
 
 
 def _layer(lines: Iterable[np.ndarray], name: str) -> InputLayer:
@@ -584,7 +589,16 @@ def targets(
             merged,
             not_undetermined,
         ),
-        ("unrelated lines never a fitting pair (accepted / pairs)", unrelated, is_fitting),
+        (
+            "unrelated lines never a fitting pair, white error (accepted / pairs)",
+            [u for u in unrelated if u.model == "white"],
+            is_fitting,
+        ),
+        (
+            "unrelated lines never a fitting pair, GNSS-like error (accepted / pairs)",
+            [u for u in unrelated if u.model == "gnss"],
+            is_fitting,
+        ),
     ]
     for name, items, bad in checks:
         text, ok = _per_noise(items, bad)
@@ -633,17 +647,18 @@ def four_wheel_rows(results: list[FourWheel]) -> list[str]:
 def unrelated_rows(results: list[Unrelated]) -> list[str]:
     verdicts = " | ".join(v.replace("_", " ") for v in VERDICTS)
     rows = _header(
-        f"noise m | pairs | {verdicts} | past the pipeline's spacing pre-check | "
+        f"error | noise m | pairs | {verdicts} | past the pipeline's spacing pre-check | "
         "accepted and past the pre-check"
     )
-    for noise in NOISES:
-        sel = [u for u in results if u.noise == noise]
-        counts = [sum(u.verdict == v for u in sel) for v in VERDICTS]
-        through = sum(u.candidate and is_fitting(u.verdict) for u in sel)
-        rows.append(
-            f"| {noise} | {len(sel)} | {' | '.join(map(str, counts))} | "
-            f"{sum(u.candidate for u in sel)} | {through} |"
-        )
+    for model in ("white", "gnss"):
+        for noise in NOISES:
+            sel = [u for u in results if u.noise == noise and u.model == model]
+            counts = [sum(u.verdict == v for u in sel) for v in VERDICTS]
+            through = sum(u.candidate and is_fitting(u.verdict) for u in sel)
+            rows.append(
+                f"| {model} | {noise} | {len(sel)} | {' | '.join(map(str, counts))} | "
+                f"{sum(u.candidate for u in sel)} | {through} |"
+            )
     return rows
 
 
@@ -685,6 +700,11 @@ def main() -> None:
     pairs = product(NOISES, range(4 * reps))
     unrelated = _run(
         "unrelated", run_unrelated, [(n, seed) for seed, (n, _) in _seeded(pairs, 30_001)]
+    )
+    unrelated += _run(
+        "unrelated, GNSS-like error",
+        run_unrelated,
+        [(n, seed, "gnss") for seed, (n, _) in _seeded(product(NOISES, range(4 * reps)), 35_001)],
     )
     passes = product(FOUR_WHEEL, NOISES, range(max(1, reps // 2)))
     four = _run(
@@ -760,7 +780,8 @@ def main() -> None:
         "",
         "Two independent random smooth passes (random vehicle and wheel each); the second is "
         "moved rigidly so that a 15-40 m stretch of it lies best on a stretch of the first "
-        "(least squares), either way round, then both are mapped. Judged by `solve_pair`; "
+        "(least squares), either way round, then both are mapped (white error, or the "
+        "main grid's GNSS-like error). Judged by `solve_pair`; "
         "anything but `not_a_pair` is a wrong pairing. The last two columns count the pairs the "
         "pipeline would hand to the solver at all (STRtree candidates, then the spacing "
         "pre-check of `pairing.Candidate.may_be_front_rear`), and those of them the solver "

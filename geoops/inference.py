@@ -603,6 +603,25 @@ def curvature_shared(
     return r > z / np.sqrt(len(a))
 
 
+#: largest factor by which a slowly wandering misfit widens the tolerance
+WANDER_FACTOR_MAX = 2.0
+
+
+def _wander_factor(corr_len: float, window: float) -> float:
+    """How much to widen the misfit tolerance for residuals correlated over ``corr_len``
+    metres when the noise was measured over a smoothing ``window``: sqrt(corr_len / window),
+    at most :data:`WANDER_FACTOR_MAX`.
+
+    The pair's sigma comes from each line's scatter about its own smoothed curve, which a
+    slowly wandering survey error (GNSS multipath, a drifting base) does not show: two
+    straight tracks of one vehicle then sit apart by more than that sigma explains, smoothly.
+    A residual series correlated far beyond the window is that signature; a wrong pairing's
+    misfit stays mostly within a window on bench/accuracy.py's unrelated lines."""
+    if not np.isfinite(corr_len) or window <= 0:
+        return 1.0
+    return float(np.clip(np.sqrt(corr_len / window), 1.0, WANDER_FACTOR_MAX))
+
+
 def _sigmoid(x: float) -> float:
     return float(1.0 / (1.0 + np.exp(-np.clip(x, -MAX_LOG_ODDS, MAX_LOG_ODDS))))
 
@@ -725,7 +744,6 @@ def solve_pair(first: CleanRut, second: CleanRut, legs: bool = False) -> PairRes
         grid_mse, _ = best_obj.many(_GRID)
         raw = grid_mse + _GRID**2 * best_obj.tvar
         misfit = float(np.sqrt(max(float(np.min(raw)), 0.0))) if np.isfinite(raw).any() else misfit
-    tolerance = tol_base + 0.01 * best.wheelbase
     # residuals are correlated (smoothing windows, slowly wandering GNSS error): count
     # independent stretches of the residual series, not samples
     used_length = best.n_used * spacing
@@ -733,6 +751,7 @@ def solve_pair(first: CleanRut, second: CleanRut, legs: bool = False) -> PairRes
     corr_len = max(
         _correlation_length(miss[valid], spacing), rear_track.window_m, target_track.window_m
     )
+    tolerance = (tol_base + 0.01 * best.wheelbase) * _wander_factor(corr_len, window)
     n_eff = max(used_length / corr_len, 1.0)
     scale = n_eff / max(best.raw_mse, RESIDUAL_FLOOR_M**2)
 
