@@ -252,38 +252,6 @@ class _Objective:
         """Mean truncated squared miss and samples used, per wheelbase."""
         return self._mse(self._sums(lengths, kernels.PLAIN), lengths)
 
-    def linearised(
-        self, length: float, free_shift: bool = False
-    ) -> tuple[float, int, Array | None, Array | None]:
-        """The misfit of :meth:`many` at one wheelbase (mse, samples used) with its gradient
-        and Gauss-Newton Hessian in the wheelbase (and, with ``free_shift``, in a lateral
-        shift added to the current one).
-
-        Each prediction's signed miss e is measured along the target's normal at its nearest
-        point; moving the prediction by dL along the rear tangent u (or by dc along the rear
-        normal n) changes that miss by dL (u . n_target) (or dc (n . n_target)) to first
-        order, the target's own tangent direction carrying no miss. Truncated samples
-        contribute nothing to the slope."""
-        lengths = np.array([length])
-        sums = self._sums(lengths, kernels.NEWTON)
-        mse_a, used_a = self._mse(sums, lengths)
-        mse, used = float(mse_a[0]), int(used_a[0])
-        if not np.isfinite(mse):
-            return float("inf"), used, None, None
-        k = kernels
-        row = sums[0]
-        if free_shift:
-            grad = np.array([row[k.GE], row[k.HE]])
-            hess = np.array([[row[k.GG], row[k.GH]], [row[k.GH], row[k.HH]]])
-        else:
-            grad = np.array([row[k.GE]])
-            hess = np.array([[row[k.GG]]])
-        grad = 2.0 * grad / used
-        hess = 2.0 * hess / used
-        grad[0] -= 2.0 * length * self.tvar
-        hess[0, 0] -= 2.0 * self.tvar
-        return mse, used, grad, hess
-
 
 def _subsample(mask: np.ndarray, most: int) -> np.ndarray:
     idx = np.flatnonzero(mask)
@@ -292,50 +260,29 @@ def _subsample(mask: np.ndarray, most: int) -> np.ndarray:
     return idx
 
 
-#: Gauss-Newton evaluations at most per fit, and the relative change of the wheelbase at which
-#: it stops
-_NEWTON_STEPS = 6
-_NEWTON_TOL = 1e-4
-
-
 def _newton(
     obj: _Objective, start: float, bracket: tuple[float, float], free_shift: bool = False
 ) -> tuple[float, float, int, float]:
     """Refine a wheelbase (and, with ``free_shift``, a lateral shift) by Gauss-Newton steps on
-    the truncated misfit, each one batched query of all samples; the wheelbase stays within
-    ``bracket`` and the total shift within :data:`SHIFT_MAX_M`. A step that makes the fit
-    worse is halved back towards the best point. Returns the best (wheelbase, mse, samples
-    used, shift) seen; the objective is left at its starting shift."""
-    lo, hi = bracket
-    base_shift = obj.shift
-    x = np.array([start, 0.0] if free_shift else [start])
-    best_x, best = x.copy(), (float("nan"), float("inf"), 0, base_shift)
-    for _ in range(_NEWTON_STEPS):
-        obj.shift = base_shift + (float(x[1]) if free_shift else 0.0)
-        mse, used, grad, hess = obj.linearised(float(x[0]), free_shift)
-        if mse < best[1]:
-            best_x, best = x.copy(), (float(x[0]), mse, used, obj.shift)
-        elif np.isfinite(best[1]):
-            # worse than the best point: go half way back to it
-            x = 0.5 * (x + best_x)
-            continue
-        if grad is None or hess is None:
-            break
-        # a flat or concave misfit in the wheelbase (a straight) steps to the bracket's end
-        hess[0, 0] = max(hess[0, 0], 1e-12 * max(abs(grad[0]), 1e-12))
-        try:
-            step = -np.linalg.solve(hess, grad)
-        except np.linalg.LinAlgError:
-            break
-        new = best_x + step
-        new[0] = np.clip(new[0], lo, hi)
-        if free_shift:
-            new[1] = np.clip(base_shift + new[1], -SHIFT_MAX_M, SHIFT_MAX_M) - base_shift
-        if np.all(np.abs(new - best_x) <= _NEWTON_TOL * max(best_x[0], 1.0)):
-            break
-        x = new
-    obj.shift = base_shift
-    return best
+    the truncated misfit (:func:`geoops.kernels.newton_fit`, each step one compiled pass over
+    all samples). Returns the best (wheelbase, mse, samples used, shift) seen.
+
+    Each prediction's signed miss e is measured along the target's normal at its nearest
+    point; moving the prediction by dL along the rear tangent u (or by dc along the rear
+    normal n) changes that miss by dL (u . n_target) (or dc (n . n_target)) to first order,
+    the target's own tangent direction carrying no miss. Truncated samples contribute nothing
+    to the slope; the expected tangent-noise term L^2 var(theta) is removed as in
+    :meth:`_Objective.many`."""
+    index = obj.target.index
+    if not hasattr(index, "poly"):  # a one-point target: nothing can land on it
+        return float("nan"), float("inf"), 0, obj.shift
+    length, mse, used, shift = kernels.newton_fit(
+        obj.base, obj.u, obj.n, float(obj.shift), float(start), float(bracket[0]),
+        float(bracket[1]), free_shift, index.poly, index.geo, index.grid, obj.usable,
+        float(obj.target.step), float(obj.edge), float(obj.cap2), SHIFT_MAX_M, float(obj.tvar),
+        int(obj.need),
+    )
+    return float(length), float(mse), int(used), float(shift)
 
 
 @dataclass

@@ -288,3 +288,77 @@ def misfit_sums(base, u, nrm, shift, lengths, mode, poly, geo, grid, usable, ste
                     r = lateral[i] - c
                     out[j, SUM_SQ] += min(r * r, cap2)
     return out
+
+
+#: Gauss-Newton evaluations at most per fit, and the relative change of the wheelbase at which
+#: it stops (see :func:`newton_fit`)
+NEWTON_STEPS = 6
+NEWTON_TOL = 1e-4
+
+
+@_compiled(f"UniTuple(float64, 4)(float64[:, ::1], float64[:, ::1], float64[:, ::1], float64, "
+           f"float64, float64, float64, boolean, {_POLY}, {_GEO}, {_GRID}, boolean[::1], "
+           f"float64, float64, float64, float64, float64, int64)")
+def newton_fit(base, u, nrm, shift0, start, lo, hi, free_shift, poly, geo, grid, usable, step,
+               edge, cap2, shift_max, tvar, need):
+    """Refine a wheelbase (and, with ``free_shift``, a lateral shift added to ``shift0``) by
+    Gauss-Newton steps on the truncated misfit of :func:`misfit_sums` (minus the expected
+    tangent-noise term ``L^2 tvar``), from ``start``, the wheelbase kept within ``[lo, hi]``
+    and the total shift within ``shift_max``. A step that makes the fit worse is halved back
+    towards the best point. Returns the best (wheelbase, mse, samples used, total shift)
+    seen; mse is inf when fewer than ``need`` samples count."""
+    lengths = np.empty(1)
+    x0 = start
+    x1 = 0.0
+    b0 = start
+    b1 = 0.0
+    best_len = np.nan
+    best_mse = np.inf
+    best_used = 0.0
+    best_shift = shift0
+    for _ in range(NEWTON_STEPS):
+        shift = shift0 + (x1 if free_shift else 0.0)
+        lengths[0] = x0
+        sums = misfit_sums(base, u, nrm, shift, lengths, NEWTON, poly, geo, grid, usable, step,
+                           edge, cap2, shift_max)
+        used = sums[0, USED]
+        mse = np.inf
+        if used >= need:
+            mse = sums[0, SUM_SQ] / max(used, 1.0) - x0 * x0 * tvar
+        if mse < best_mse:
+            b0, b1 = x0, x1
+            best_len, best_mse, best_used, best_shift = x0, mse, used, shift
+        elif np.isfinite(best_mse):
+            # worse than the best point: go half way back to it
+            x0 = 0.5 * (x0 + b0)
+            x1 = 0.5 * (x1 + b1)
+            continue
+        if used < need:
+            break
+        g0 = 2.0 * sums[0, GE] / used - 2.0 * x0 * tvar
+        h00 = 2.0 * sums[0, GG] / used - 2.0 * tvar
+        # a flat or concave misfit in the wheelbase (a straight) steps to the bracket's end
+        h00 = max(h00, 1e-12 * max(abs(g0), 1e-12))
+        if free_shift:
+            g1 = 2.0 * sums[0, HE] / used
+            h01 = 2.0 * sums[0, GH] / used
+            h11 = 2.0 * sums[0, HH] / used
+            det = h00 * h11 - h01 * h01
+            if det == 0.0:
+                break
+            s0 = -(h11 * g0 - h01 * g1) / det
+            s1 = -(h00 * g1 - h01 * g0) / det
+        else:
+            s0 = -g0 / h00
+            s1 = 0.0
+        n0 = min(max(b0 + s0, lo), hi)
+        n1 = 0.0
+        if free_shift:
+            n1 = min(max(shift0 + b1 + s1, -shift_max), shift_max) - shift0
+        if abs(n0 - b0) <= NEWTON_TOL * max(b0, 1.0) and abs(n1 - b1) <= NEWTON_TOL * max(
+            b0, 1.0
+        ):
+            break
+        x0 = n0
+        x1 = n1
+    return best_len, best_mse, best_used, best_shift
