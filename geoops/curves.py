@@ -287,20 +287,24 @@ class NearestOnPolyline:
         dist, s, side, _ = self.nearest(pts)
         return dist, s, side
 
-    def _closest(self, pts: Array) -> tuple[Array, Array, Array]:
-        """Squared distance, segment and fraction along it of the closest point."""
+    def _closest(self, pts: Array, limit: float = np.inf) -> tuple[Array, Array, Array]:
+        """Squared distance, segment and fraction along it of the closest point (inf, 0, 0
+        where nothing lies within ``limit``)."""
         if len(pts) == 0:
             return np.empty(0), np.empty(0, dtype=np.int64), np.empty(0)
         pts = np.ascontiguousarray(pts, dtype=np.float64)
-        return kernels.closest(pts, self.poly, self.geo, self.grid)
+        return kernels.closest(pts, self.poly, self.geo, self.grid, float(limit))
 
-    def distance_and_position(self, pts: Array) -> tuple[Array, Array]:
+    def distance_and_position(
+        self, pts: Array, limit: float = np.inf
+    ) -> tuple[Array, Array]:
         """Distance to the line and arc-length position of the nearest point (the lean form
-        of :meth:`query`)."""
+        of :meth:`query`). Points with nothing within ``limit`` get an infinite distance
+        (and position 0), found faster than the exact answer."""
         if len(self.xy) < 2:
             d, s, _ = self.query(pts)
-            return d, s
-        d2, seg, t = self._closest(pts)
+            return np.where(d <= limit, d, np.inf), s
+        d2, seg, t = self._closest(pts, limit)
         return np.sqrt(d2), self._s[seg] + t * self._seg_len[seg]
 
     def foot_and_tangent(self, pts: Array) -> tuple[Array, Array, Array, Array]:

@@ -96,16 +96,15 @@ COARSE = 8
 
 @njit(nogil=True, inline="always")
 def _search(px, py, x, y, abx, aby, inv_den, x0, y0, size, half_longest, gnx, gny, st, it,
-            most_rings, best, best_seg, best_t):  # noqa: E501
+            most_rings, limit, best, best_seg, best_t):  # noqa: E501
     """Scan rings of one grid's cells around ``(px, py)``, each vertex bucketed there
     projecting the query onto its two segments, until no unseen segment can be closer (or
-    ``most_rings`` rings beyond the first have been scanned). Returns the best (squared
-    distance, segment, fraction) and whether it is final."""
+    none can be within ``limit``, or ``most_rings`` rings beyond the first have been
+    scanned). Returns the best (squared distance, segment, fraction) and whether it is
+    final."""
     nseg = len(abx)
     # a vertex farther than this cannot hold a closer point (half a segment beyond the best)
-    bound2 = np.inf
-    if best < np.inf:
-        bound2 = (np.sqrt(best) + half_longest) ** 2
+    bound2 = (min(np.sqrt(best), limit) + half_longest) ** 2
     fx = (px - x0) / size
     fy = (py - y0) / size
     # far off the grid (or not a number): clamped so that the cell index stays an int
@@ -150,10 +149,10 @@ def _search(px, py, x, y, abx, aby, inv_den, x0, y0, size, half_longest, gnx, gn
                     gx = gx_end + 1
         if cx - r <= 0 and cx + r >= gnx - 1 and cy - r <= 0 and cy + r >= gny - 1:
             return best, best_seg, best_t, True  # the whole grid has been scanned
-        if best < np.inf:
+        if best < np.inf or limit < np.inf:
             # every point within this distance of the query lies in the rings scanned
             reach = size * min(fx - (cx - r), cx + r + 1 - fx, fy - (cy - r), cy + r + 1 - fy)
-            if reach >= np.sqrt(best) + half_longest:
+            if reach >= min(np.sqrt(best), limit) + half_longest:
                 return best, best_seg, best_t, True
         r += 1
     return best, best_seg, best_t, False
@@ -161,16 +160,18 @@ def _search(px, py, x, y, abx, aby, inv_den, x0, y0, size, half_longest, gnx, gn
 
 @njit(nogil=True, inline="always")
 def _nearest(px, py, x, y, abx, aby, inv_den, x0, y0, cell, half_longest, nx, ny, start, items,
-             nx2, ny2, start2, items2):  # noqa: E501
+             nx2, ny2, start2, items2, limit):  # noqa: E501
     """Squared distance, segment and fraction along it of the point of the polyline nearest to
-    ``(px, py)`` (see :func:`closest`)."""
+    ``(px, py)`` (see :func:`closest`); inf (segment 0) when nothing lies within ``limit``."""
     best, best_seg, best_t, done = _search(
         px, py, x, y, abx, aby, inv_den, x0, y0, cell, half_longest, nx, ny, start, items,
-        FINE_RINGS, np.inf, 0, 0.0)
+        FINE_RINGS, limit, np.inf, 0, 0.0)
     if not done:
         best, best_seg, best_t, done = _search(
             px, py, x, y, abx, aby, inv_den, x0, y0, cell * COARSE, half_longest, nx2, ny2,
-            start2, items2, 1 << 40, best, best_seg, best_t)
+            start2, items2, 1 << 40, limit, best, best_seg, best_t)
+    if best > limit * limit:
+        return np.inf, 0, 0.0
     return best, best_seg, best_t
 
 
@@ -181,10 +182,12 @@ _GRID = "Tuple((int64, int64, int64[::1], int64[::1], int64, int64, int64[::1], 
 
 
 @_compiled(f"Tuple((float64[::1], int64[::1], float64[::1]))(float64[:, ::1], {_POLY}, {_GEO}, "
-           f"{_GRID})")
-def closest(pts, poly, geo, grid):
+           f"{_GRID}, float64)")
+def closest(pts, poly, geo, grid, limit):
     """Per query point: squared distance to the polyline, the segment holding the nearest
-    point and the fraction along it (ties go to the lower segment).
+    point and the fraction along it (ties go to the lower segment); a query with nothing
+    within ``limit`` gets an infinite distance (segment 0, fraction 0), found without
+    searching farther (pass inf for no limit).
 
     ``poly`` holds the ``n`` vertices ``x, y``, the ``n - 1`` segments' vectors ``abx, aby``
     and inverse squared lengths (0 for a zero-length segment), the vertices' arc length and
@@ -203,7 +206,7 @@ def closest(pts, poly, geo, grid):
     for q in range(m):
         out_d2[q], out_seg[q], out_t[q] = _nearest(
             pts[q, 0], pts[q, 1], x, y, abx, aby, inv_den, x0, y0, cell, half_longest,
-            nx, ny, start, items, nx2, ny2, start2, items2)
+            nx, ny, start, items, nx2, ny2, start2, items2, limit)
     return out_d2, out_seg, out_t
 
 
@@ -248,7 +251,8 @@ def misfit_sums(base, u, nrm, shift, lengths, mode, poly, geo, grid, usable, ste
             px = base[i, 0] + shift * nrm[i, 0] + L * u[i, 0]
             py = base[i, 1] + shift * nrm[i, 1] + L * u[i, 1]
             d2, sg, t = _nearest(px, py, x, y, abx, aby, inv_den, x0, y0, cell, half_longest,
-                                 nx, ny, start, items, nx2, ny2, start2, items2)
+                                 nx, ny, start, items, nx2, ny2, start2, items2,
+                                 np.inf)
             s = s_cum[sg] + t * seg_len[sg]
             at = int(np.rint(s / step))
             at = min(max(at, 0), last)

@@ -259,12 +259,20 @@ def _axle_units(leg_passes: list[LegPass], legs: list[Leg]) -> list[tuple[int, .
     costs: dict[tuple[int, int], float] = {}
     if len(single) > 1:
         sides = {i: _side(leg_passes[i], legs) for i in single}
-        # only rear tracks within a track width of each other can be two sides of one axle
-        rears = as_linestrings([sides[i].rear.xy for i in single])
-        tree = shapely.STRtree(rears)
-        left, right = tree.query(rears, predicate="dwithin", distance=TRACK_MAX_M)
+        # only rear tracks within a track width of each other can be two sides of one axle:
+        # boxes within reach, then a glance at a few samples (join_cost needs half of one
+        # rear track beside the other, far more than the glance can miss)
+        rears = [sides[i].rear for i in single]
+        lo = np.array([r.xy.min(axis=0) for r in rears]) - TRACK_MAX_M
+        hi = np.array([r.xy.max(axis=0) for r in rears]) + TRACK_MAX_M
+        tree = shapely.STRtree(as_linestrings([r.xy for r in rears]))
+        left, right = tree.query(shapely.box(lo[:, 0], lo[:, 1], hi[:, 0], hi[:, 1]))
         for ia, ib in zip(left.tolist(), right.tolist(), strict=True):
             if ia >= ib:
+                continue
+            glance = rears[ia].xy[:: max(len(rears[ia].xy) // 16, 1)]
+            near, _ = rears[ib].index.distance_and_position(glance, TRACK_MAX_M)
+            if not (near <= TRACK_MAX_M).any():
                 continue
             a, b = single[ia], single[ib]
             joined = join_cost(sides[a], sides[b])

@@ -66,3 +66,18 @@ def test_savgol_matches_scipy(window, order, deriv):
     ref = savgol_filter(y, window, order, deriv, axis=0, mode="interp")
     # source: scipy.signal.savgol_filter (mode "interp": polynomial fits at the ends)
     assert np.allclose(savgol(y, window, order, deriv), ref, atol=1e-10)
+
+
+def test_a_distance_limit_answers_inf_beyond_it_and_exactly_within():
+    line = _looped_line(0.3)
+    q = NearestOnPolyline(line)
+    rng = np.random.default_rng(9)
+    pts = line[rng.integers(0, len(line), 2000)] + rng.normal(0.0, 2.0, (2000, 2))
+    exact, s_exact = q.distance_and_position(pts)
+    d, s = q.distance_and_position(pts, 1.5)
+    near = exact <= 1.5
+    # source: shapely 2.x distance - the unlimited answer is checked against GEOS above
+    assert near.any() and (~near).any()
+    assert np.allclose(d[near], exact[near], rtol=0, atol=1e-12)
+    assert np.allclose(s[near], s_exact[near], rtol=0, atol=1e-9)
+    assert np.isinf(d[~near]).all()

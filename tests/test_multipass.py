@@ -223,3 +223,13 @@ def test_only_pairs_that_come_together_reach_the_solver():
     assert verdicts[frozenset(("rear_right", "front_right"))]
     assert not verdicts[frozenset(("rear_left", "rear_right"))]
     assert not verdicts[frozenset(("front_left", "front_right"))]
+
+
+def test_spacing_quantile_is_numpys_percentile():
+    from geoops.pairing import _percentile
+
+    rng = np.random.default_rng(3)
+    for n in [1, 2, 3, 9, 10, 11, 57, 200]:
+        values = rng.exponential(1.0, n)
+        # source: numpy.percentile, linear interpolation (its default method)
+        assert _percentile(values, 10.0) == float(np.percentile(values, 10.0))
