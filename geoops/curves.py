@@ -272,6 +272,15 @@ class NearestOnPolyline:
                 self._x, self._y, x0, y0, cell * kernels.COARSE
             )
 
+    def __getstate__(self) -> dict[str, Array]:
+        # only the line: the derived arrays and bucket grids are rebuilt on arrival, which
+        # costs less than sending them between processes (they are larger than the line)
+        return {"xy": self.xy}
+
+    def __setstate__(self, state: dict[str, Array]) -> None:
+        self.xy = state["xy"]
+        self.__post_init__()
+
     @property
     def length(self) -> float:
         return float(self._s[-1])

@@ -81,3 +81,14 @@ def test_a_distance_limit_answers_inf_beyond_it_and_exactly_within():
     assert np.allclose(d[near], exact[near], rtol=0, atol=1e-12)
     assert np.allclose(s[near], s_exact[near], rtol=0, atol=1e-9)
     assert np.isinf(d[~near]).all()
+
+
+def test_an_index_travels_between_processes_as_its_line_and_answers_the_same():
+    import pickle
+
+    line = _looped_line(0.3)
+    q = NearestOnPolyline(line)
+    pts = line[::50] + 0.4
+    copy = pickle.loads(pickle.dumps(q))
+    assert len(pickle.dumps(q)) < 1.2 * line.nbytes + 1000  # not the bucket grids
+    assert np.array_equal(copy.distance_and_position(pts)[0], q.distance_and_position(pts)[0])
