@@ -263,7 +263,10 @@ class NearestOnPolyline:
         if len(self.xy) >= 2:
             longest = float(self._seg_len.max())
             x0, y0 = float(self._x.min()), float(self._y.min())
-            cell = kernels.grid_cell(self.xy, longest)
+            cell = kernels.grid_cell(
+                float(self._x.max()) - x0, float(self._y.max()) - y0, len(self.xy),
+                float(self._s[-1]), longest,
+            )
             #: the kernels' view of the line (see :func:`geoops.kernels.closest`)
             self.poly = (self._x, self._y, self._abx, self._aby, self._inv_den, self._s,
                          self._seg_len)

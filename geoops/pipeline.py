@@ -653,11 +653,15 @@ def _target_crs(result: AnalysisResult, out_crs: str | None, geojson: bool) -> p
 
 
 def _to_geoms(arrays: list[Array], frame: LocalFrame, crs: pyproj.CRS) -> np.ndarray:
-    out = []
-    for xy in arrays:
-        x, y = frame.from_local(xy[:, 0], xy[:, 1], crs)
-        out.append(np.column_stack([x, y]))
-    return as_linestrings(out)
+    """Local lines as linestrings in ``crs``, transformed in one call (a call per line costs
+    more than the work)."""
+    if not arrays:
+        return as_linestrings([])
+    flat = np.concatenate(arrays)
+    x, y = frame.from_local(flat[:, 0], flat[:, 1], crs)
+    return as_linestrings(
+        np.split(np.column_stack([x, y]), np.cumsum([len(a) for a in arrays])[:-1])
+    )
 
 
 def result_layers(result: AnalysisResult, crs: pyproj.CRS) -> list[OutputLayer]:
