@@ -225,8 +225,7 @@ class _Objective:
         """The compiled sums of :func:`geoops.kernels.misfit_sums` for these wheelbases."""
         index = self.target.index
         if not hasattr(index, "poly"):  # a one-point target: nothing can land on it
-            out = np.zeros((len(lengths), 8))
-            return out
+            return np.zeros((len(lengths), 8))
         return kernels.misfit_sums(
             self.base, self.u, self.n, float(self.shift), np.ascontiguousarray(lengths, float),
             mode, index.poly, index.geo, index.grid, self.usable, float(self.target.step),
