@@ -8,6 +8,7 @@ from __future__ import annotations
 
 import functools
 from dataclasses import dataclass, field
+from typing import Any
 
 import numpy as np
 import shapely
@@ -276,13 +277,20 @@ class NearestOnPolyline:
             )
 
     def __getstate__(self) -> dict[str, Array]:
-        # only the line: the derived arrays and bucket grids are rebuilt on arrival, which
-        # costs less than sending them between processes (they are larger than the line)
+        # only the line: the derived arrays and bucket grids are rebuilt where they are first
+        # used, which costs less than sending them between processes (they are larger than
+        # the line), and spreads the rebuilding over the workers that query
         return {"xy": self.xy}
 
     def __setstate__(self, state: dict[str, Array]) -> None:
         self.xy = state["xy"]
+
+    def __getattr__(self, name: str) -> Any:
+        # called only for attributes not set: after unpickling, build them on first use
+        if name.startswith("__") or "_s" in self.__dict__ or "xy" not in self.__dict__:
+            raise AttributeError(name)
         self.__post_init__()
+        return getattr(self, name)
 
     @property
     def length(self) -> float:
