@@ -327,23 +327,6 @@ class NearestOnPolyline:
         d2, seg, t = self._closest(pts, limit)
         return np.sqrt(d2), self._s[seg] + t * self._seg_len[seg]
 
-    def foot_and_tangent(self, pts: Array) -> tuple[Array, Array, Array, Array]:
-        """Distance, arc-length position, nearest point ``(m, 2)`` and the unit tangent of the
-        line there ``(m, 2)``, for the solver's Gauss-Newton steps."""
-        if len(self.xy) < 2:
-            d, s, _, foot = self.nearest(pts)
-            return d, s, foot, np.tile([1.0, 0.0], (len(pts), 1))
-        d2, seg, t = self._closest(pts)
-        abx, aby = self._abx[seg], self._aby[seg]
-        foot = np.column_stack([self._x[seg] + t * abx, self._y[seg] + t * aby])
-        inv = 1.0 / np.maximum(self._seg_len[seg], 1e-12)
-        return (
-            np.sqrt(d2),
-            self._s[seg] + t * self._seg_len[seg],
-            foot,
-            np.column_stack([abx * inv, aby * inv]),
-        )
-
     def nearest(self, pts: Array) -> tuple[Array, Array, Array, Array]:
         """Like :meth:`query`, plus the nearest points themselves, ``(m, 2)``."""
         m = len(pts)
