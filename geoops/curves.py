@@ -342,3 +342,32 @@ class NearestOnPolyline:
         cross = abx * (pts[:, 1] - ay) - aby * (pts[:, 0] - ax)
         side = np.where(cross >= 0, 1.0, -1.0)
         return np.sqrt(d2), s, side, foot
+
+
+def polyline_set(indexes: list[NearestOnPolyline]) -> tuple[Any, ...]:
+    """Many indexed lines (two or more vertices each) as one set of concatenated arrays, for
+    kernels that visit many pairs of lines in one call (see
+    :func:`geoops.kernels.spacing_profiles`, which documents the layout)."""
+    if any(len(q.xy) < 2 for q in indexes):
+        raise ValueError("every line of a polyline set needs two or more vertices")
+    grids = [q.grid for q in indexes]
+
+    def starts(counts: list[int]) -> np.ndarray:
+        return np.concatenate([[0], np.cumsum(counts)]).astype(np.int64)
+
+    def cat(arrays: list[np.ndarray], dtype: type) -> np.ndarray:
+        return np.ascontiguousarray(np.concatenate(arrays), dtype=dtype)
+
+    offsets = (starts([len(q.xy) for q in indexes]), starts([len(q.xy) - 1 for q in indexes]))
+    arrays = tuple(cat([q.poly[k] for q in indexes], np.float64) for k in range(5))
+    geos = np.ascontiguousarray(np.array([q.geo for q in indexes], dtype=np.float64))
+    grid_arrays = []
+    for level in (0, 4):
+        grid_arrays += [
+            np.array([g[level] for g in grids], dtype=np.int64),
+            np.array([g[level + 1] for g in grids], dtype=np.int64),
+            starts([len(g[level + 2]) for g in grids]),
+            cat([g[level + 2] for g in grids], np.int64),
+            cat([g[level + 3] for g in grids], np.int64),
+        ]
+    return offsets, arrays, geos, tuple(grid_arrays)

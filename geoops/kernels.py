@@ -368,3 +368,79 @@ def newton_fit(base, u, nrm, shift0, start, lo, hi, free_shift, poly, geo, grid,
         x0 = n0
         x1 = n1
     return best_len, best_mse, best_used, best_shift
+
+
+#: the numba types of a set of polylines (see :func:`spacing_profiles`)
+_SET = ("UniTuple(int64[::1], 2), UniTuple(float64[::1], 5), float64[:, ::1], "
+        "UniTuple(int64[::1], 10)")
+
+
+@_compiled(f"UniTuple(float64[::1], 2)(int64[::1], int64[::1], {_SET}, int64, int64, float64, "
+           f"float64)")
+def spacing_profiles(first, second, offsets, arrays, geos, grids, glance, samples, reach, q):
+    """For each pair ``(first[k], second[k])`` of lines of a set: the share of the first's
+    sampled vertices within ``reach`` of the second, and the ``q``-th percentile (numpy's
+    linear interpolation) of the distances of those within (inf when none is).
+
+    Every ``len // glance``-th vertex is looked at first; when none of those is within reach
+    the pair gets (0, inf) without the full profile over every ``len // samples``-th vertex.
+    The set (``geoops.curves.polyline_set``): ``offsets`` = (vertex starts, segment starts),
+    ``arrays`` = (x, y, abx, aby, inv_den) concatenated, ``geos`` one row of (x0, y0, cell,
+    half_longest) per line, ``grids`` = (nx, ny, cell-array starts, fine cell starts, fine
+    bucketed vertices, nx2, ny2, coarse cell-array starts, coarse cell starts, coarse bucketed
+    vertices); the bucketed vertex indices are each line's own and share the vertex starts."""
+    vstart, sstart = offsets
+    xs, ys, abxs, abys, invs = arrays
+    nxs, nys, gs1, starts1, items1, nxs2, nys2, gs2, starts2, items2 = grids
+    m = first.shape[0]
+    shared = np.zeros(m)
+    near = np.full(m, np.inf)
+    for k in range(m):
+        a = first[k]
+        b = second[k]
+        va0 = vstart[a]
+        na = vstart[a + 1] - va0
+        vb0 = vstart[b]
+        vb1 = vstart[b + 1]
+        x = xs[vb0:vb1]
+        y = ys[vb0:vb1]
+        abx = abxs[sstart[b]:sstart[b + 1]]
+        aby = abys[sstart[b]:sstart[b + 1]]
+        inv = invs[sstart[b]:sstart[b + 1]]
+        st1 = starts1[gs1[b]:gs1[b + 1]]
+        st2 = starts2[gs2[b]:gs2[b + 1]]
+        it1 = items1[vb0:vb1]
+        it2 = items2[vb0:vb1]
+        x0, y0, cell, half = geos[b, 0], geos[b, 1], geos[b, 2], geos[b, 3]
+        found = False
+        for i in range(va0, va0 + na, max(na // glance, 1)):
+            d2, _, _ = _nearest(xs[i], ys[i], x, y, abx, aby, inv, x0, y0, cell, half,
+                                nxs[b], nys[b], st1, it1, nxs2[b], nys2[b], st2, it2, reach)
+            if np.sqrt(d2) <= reach:
+                found = True
+                break
+        if not found:
+            continue
+        stride = max(na // samples, 1)
+        total = 0
+        within = np.empty((na + stride - 1) // stride)
+        count = 0
+        for i in range(va0, va0 + na, stride):
+            d2, _, _ = _nearest(xs[i], ys[i], x, y, abx, aby, inv, x0, y0, cell, half,
+                                nxs[b], nys[b], st1, it1, nxs2[b], nys2[b], st2, it2, reach)
+            total += 1
+            d = np.sqrt(d2)
+            if d <= reach:
+                within[count] = d
+                count += 1
+        shared[k] = count / total
+        if count:
+            vals = np.sort(within[:count])
+            pos = q / 100.0 * (count - 1)
+            lo = int(pos)
+            hi = min(lo + 1, count - 1)
+            lo_v = vals[lo]
+            hi_v = vals[hi]
+            t = pos - lo
+            near[k] = hi_v - (hi_v - lo_v) * (1.0 - t) if t >= 0.5 else lo_v + (hi_v - lo_v) * t
+    return shared, near

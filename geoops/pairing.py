@@ -14,8 +14,9 @@ from typing import Any
 import numpy as np
 import shapely
 
+from . import kernels
 from .clean import CleanRut
-from .curves import as_linestrings
+from .curves import as_linestrings, polyline_set
 from .inference import OFFTRACK_MAX_M, SHIFT_MAX_M, PairResult, solve_pair
 from .parallel import pool_map
 
@@ -66,41 +67,15 @@ class Candidate:
         return self.near <= FRONT_REAR_NEAR_M + 3.0 * sigma
 
 
-#: samples of the shorter rut looked at before its whole spacing profile is measured
+#: samples of the shorter rut looked at before its whole spacing profile is measured: boxes
+#: within reach often hold lines that never come near (far queries cost the most); none of a
+#: few dozen samples near means far less than the share needed
 _GLANCE = 24
+#: samples of the shorter rut in its spacing profile (at most about twice as many)
+_PROFILE_SAMPLES = 200
 
 
-def _profile(state: dict[str, Any], pair: tuple[int, int]) -> tuple[float, float]:
-    """Shared fraction and near-spacing quantile of a pair of ruts (see :class:`Candidate`)."""
-    ruts = state["ruts"]
-    i, j = pair
-    a, b = (ruts[i], ruts[j]) if ruts[i].length <= ruts[j].length else (ruts[j], ruts[i])
-    # a glance first: boxes within reach often hold lines that never come near (far queries
-    # cost the most); none of a few dozen samples near means far less than the share needed
-    reach = NEIGHBOUR_DISTANCE_M  # farther points need no exact distance
-    glance, _ = b.index.distance_and_position(a.xy[:: max(len(a.xy) // _GLANCE, 1)], reach)
-    if not (glance <= NEIGHBOUR_DISTANCE_M).any():
-        return 0.0, float("inf")
-    d, _ = b.index.distance_and_position(a.xy[:: max(len(a.xy) // 200, 1)], reach)
-    within = d <= NEIGHBOUR_DISTANCE_M
-    shared = float(np.mean(within))
-    near = _percentile(d[within], NEAR_QUANTILE) if within.any() else float("inf")
-    return shared, near
-
-
-def _percentile(values: np.ndarray, q: float) -> float:
-    """``np.percentile(values, q)`` (linear interpolation, the same arithmetic) by a partial
-    sort: the candidate profiles are many small arrays, where numpy's general path costs more
-    than the distances themselves."""
-    pos = q / 100.0 * (len(values) - 1)
-    lo = int(pos)
-    hi = min(lo + 1, len(values) - 1)
-    part = np.partition(values, (lo, hi))
-    a, b, t = float(part[lo]), float(part[hi]), pos - lo
-    return b - (b - a) * (1.0 - t) if t >= 0.5 else a + (b - a) * t
-
-
-def candidate_pairs(ruts: list[CleanRut], workers: int | None = None) -> list[Candidate]:
+def candidate_pairs(ruts: list[CleanRut]) -> list[Candidate]:
     """Pairs of ruts that run near each other (at least :data:`MIN_SHARED_FRACTION` of the
     shorter within :data:`NEIGHBOUR_DISTANCE_M` of the other), with their spacing profile."""
     if len(ruts) < 2:
@@ -113,12 +88,19 @@ def candidate_pairs(ruts: list[CleanRut], workers: int | None = None) -> list[Ca
     hi = np.array([r.xy.max(axis=0) for r in ruts]) + NEIGHBOUR_DISTANCE_M
     left, right = tree.query(shapely.box(lo[:, 0], lo[:, 1], hi[:, 0], hi[:, 1]))
     keep = left < right
-    pairs = list(zip(left[keep].tolist(), right[keep].tolist(), strict=True))
-    profiles = pool_map(_profile, pairs, {"ruts": ruts}, workers)
+    i, j = left[keep].astype(np.int64), right[keep].astype(np.int64)
+    # the spacing profile is measured from the shorter rut of each pair, all pairs in one
+    # compiled call; farther points need no exact distance
+    lengths = np.array([r.length for r in ruts])
+    shorter = lengths[i] <= lengths[j]
+    shared, near = kernels.spacing_profiles(
+        np.where(shorter, i, j), np.where(shorter, j, i), *polyline_set([r.index for r in ruts]),
+        _GLANCE, _PROFILE_SAMPLES, NEIGHBOUR_DISTANCE_M, NEAR_QUANTILE,
+    )
     return [
-        Candidate(i, j, shared, near)
-        for (i, j), (shared, near) in zip(pairs, profiles, strict=True)
-        if shared >= MIN_SHARED_FRACTION
+        Candidate(a, b, s, n)
+        for a, b, s, n in zip(i.tolist(), j.tolist(), shared.tolist(), near.tolist(), strict=True)
+        if s >= MIN_SHARED_FRACTION
     ]
 
 
@@ -143,7 +125,7 @@ def choose_pairs(
     its reversals); legs of one line are never paired with each other. ``workers`` > 1
     judges the candidates in that many forked processes (same result).
     """
-    cands = candidate_pairs(ruts, workers)
+    cands = candidate_pairs(ruts)
     if same_line is not None:
         cands = [c for c in cands if same_line[c.i] != same_line[c.j]]
     todo = [c for c in cands if c.may_be_front_rear(ruts)]

@@ -225,11 +225,24 @@ def test_only_pairs_that_come_together_reach_the_solver():
     assert not verdicts[frozenset(("front_left", "front_right"))]
 
 
-def test_spacing_quantile_is_numpys_percentile():
-    from geoops.pairing import _percentile
 
-    rng = np.random.default_rng(3)
-    for n in [1, 2, 3, 9, 10, 11, 57, 200]:
-        values = rng.exponential(1.0, n)
-        # source: numpy.percentile, linear interpolation (its default method)
-        assert _percentile(values, 10.0) == float(np.percentile(values, 10.0))
+def test_spacing_profiles_match_a_direct_measurement():
+    """The compiled spacing profile of candidate pairs against shapely distances and numpy's
+    percentile, measured from the shorter rut of each pair."""
+    import shapely
+
+    from geoops.clean import clean_rut
+    from geoops.pairing import NEAR_QUANTILE, NEIGHBOUR_DISTANCE_M, candidate_pairs
+
+    scene = make_scene(11, 8)
+    ruts = [clean_rut([line.xy]) for line in scene.lines]
+    cands = candidate_pairs(ruts)
+    assert len(cands) >= 5
+    for c in cands:
+        a, b = sorted((ruts[c.i], ruts[c.j]), key=lambda r: r.length)
+        pts = a.xy[:: max(len(a.xy) // 200, 1)]
+        # source: shapely 2.x distance (GEOS) and numpy.percentile (linear interpolation)
+        d = shapely.distance(shapely.points(pts), shapely.LineString(b.xy))
+        within = d <= NEIGHBOUR_DISTANCE_M
+        assert c.shared == pytest.approx(float(np.mean(within)), abs=1e-12)
+        assert c.near == pytest.approx(float(np.percentile(d[within], NEAR_QUANTILE)), abs=1e-9)
