@@ -344,6 +344,26 @@ class NearestOnPolyline:
         return np.sqrt(d2), s, side, foot
 
 
+def box_neighbours(lines: list[Array], reach: float) -> tuple[np.ndarray, np.ndarray]:
+    """Pairs ``i < j`` of lines whose bounding boxes come within ``reach`` of each other (a
+    superset of the lines that do), from an STRtree of the boxes.
+
+    Examples
+    --------
+    >>> a = np.array([[0.0, 0.0], [1.0, 0.0]])
+    >>> i, j = box_neighbours([a, a + [0.0, 2.0], a + [0.0, 9.0]], 2.5)
+    >>> list(zip(i.tolist(), j.tolist()))
+    [(0, 1)]
+    """
+    lo = np.array([xy.min(axis=0) for xy in lines])
+    hi = np.array([xy.max(axis=0) for xy in lines])
+    tree = shapely.STRtree(shapely.box(lo[:, 0], lo[:, 1], hi[:, 0], hi[:, 1]))
+    lo, hi = lo - reach, hi + reach
+    left, right = tree.query(shapely.box(lo[:, 0], lo[:, 1], hi[:, 0], hi[:, 1]))
+    keep = left < right
+    return left[keep].astype(np.int64), right[keep].astype(np.int64)
+
+
 def polyline_set(indexes: list[NearestOnPolyline]) -> tuple[Any, ...]:
     """Many indexed lines (two or more vertices each) as one set of concatenated arrays, for
     kernels that visit many pairs of lines in one call (see

@@ -260,9 +260,11 @@ def _subsample(mask: np.ndarray, most: int) -> np.ndarray:
 
 
 def _newton(
-    obj: _Objective, start: float, bracket: tuple[float, float], free_shift: bool = False
+    obj: _Objective, start: float, bracket: tuple[float, float], shift: float,
+    free_shift: bool = False,
 ) -> tuple[float, float, int, float]:
-    """Refine a wheelbase (and, with ``free_shift``, a lateral shift) by Gauss-Newton steps on
+    """Refine a wheelbase from ``start`` (and, with ``free_shift``, a lateral shift from
+    ``shift``; else the predictions keep that shift) by Gauss-Newton steps on
     the truncated misfit (:func:`geoops.kernels.newton_fit`, each step one compiled pass over
     all samples). Returns the best (wheelbase, mse, samples used, shift) seen.
 
@@ -274,9 +276,9 @@ def _newton(
     :meth:`_Objective.many`."""
     index = obj.target.index
     if not hasattr(index, "poly"):  # a one-point target: nothing can land on it
-        return float("nan"), float("inf"), 0, obj.shift
+        return float("nan"), float("inf"), 0, shift
     length, mse, used, shift = kernels.newton_fit(
-        obj.base, obj.u, obj.n, float(obj.shift), float(start), float(bracket[0]),
+        obj.base, obj.u, obj.n, float(shift), float(start), float(bracket[0]),
         float(bracket[1]), free_shift, index.poly, index.geo, index.grid, obj.usable,
         float(obj.target.step), float(obj.edge), float(obj.cap2), SHIFT_MAX_M, float(obj.tvar),
         int(obj.need),
@@ -313,17 +315,12 @@ def _fit(h: _Hypothesis, profiled: bool = False) -> tuple[float, float, int, flo
         mse, _, shifts = h.coarse.profiled(_GRID)
     else:
         mse, _ = h.coarse.many(_GRID)
-        shifts = np.full(len(_GRID), h.coarse.shift)
     if not np.isfinite(mse).any():
         return float("nan"), float("inf"), 0, h.fine.shift
     i = int(np.nanargmin(mse))
     bracket = (float(_GRID[max(i - 1, 0)]), float(_GRID[min(i + 1, len(_GRID) - 1)]))
-    base = h.fine.shift
-    h.fine.shift = float(shifts[i])
-    try:
-        return _newton(h.fine, float(_GRID[i]), bracket, free_shift=profiled)
-    finally:
-        h.fine.shift = base
+    shift = float(shifts[i]) if profiled else h.fine.shift
+    return _newton(h.fine, float(_GRID[i]), bracket, shift, free_shift=profiled)
 
 
 def _fit_with_shift(

@@ -12,11 +12,10 @@ from dataclasses import dataclass, field
 from typing import Any
 
 import numpy as np
-import shapely
 
 from . import kernels
 from .clean import CleanRut
-from .curves import as_linestrings, polyline_set
+from .curves import box_neighbours, polyline_set
 from .inference import OFFTRACK_MAX_M, SHIFT_MAX_M, PairResult, solve_pair
 from .parallel import pool_map
 
@@ -80,15 +79,9 @@ def candidate_pairs(ruts: list[CleanRut]) -> list[Candidate]:
     shorter within :data:`NEIGHBOUR_DISTANCE_M` of the other), with their spacing profile."""
     if len(ruts) < 2:
         return []
-    lines = as_linestrings([r.xy for r in ruts])
-    tree = shapely.STRtree(lines)
     # boxes within reach first (exact line-to-line distances cost far more than the profile,
     # which measures the distance anyway: a pair farther apart shares nothing)
-    lo = np.array([r.xy.min(axis=0) for r in ruts]) - NEIGHBOUR_DISTANCE_M
-    hi = np.array([r.xy.max(axis=0) for r in ruts]) + NEIGHBOUR_DISTANCE_M
-    left, right = tree.query(shapely.box(lo[:, 0], lo[:, 1], hi[:, 0], hi[:, 1]))
-    keep = left < right
-    i, j = left[keep].astype(np.int64), right[keep].astype(np.int64)
+    i, j = box_neighbours([r.xy for r in ruts], NEIGHBOUR_DISTANCE_M)
     # the spacing profile is measured from the shorter rut of each pair, all pairs in one
     # compiled call; farther points need no exact distance
     lengths = np.array([r.length for r in ruts])

@@ -25,7 +25,7 @@ from .axles import TRACK_MAX_M, Side, choose_axles, join_cost, spacing
 from .chaining import chain_features
 from .clean import CleanRut, clean_line, clean_rut, join_parts
 from .crosscheck import steady_turn_wheelbase
-from .curves import Array, as_linestrings
+from .curves import Array, as_linestrings, box_neighbours
 from .errors import BadInput, CrsError
 from .frame import LocalFrame, build_frame, resolve_crs
 from .inference import DECIDE_AT, MAX_LOG_ODDS, PairResult
@@ -263,13 +263,8 @@ def _axle_units(leg_passes: list[LegPass], legs: list[Leg]) -> list[tuple[int, .
         # boxes within reach, then a glance at a few samples (join_cost needs half of one
         # rear track beside the other, far more than the glance can miss)
         rears = [sides[i].rear for i in single]
-        lo = np.array([r.xy.min(axis=0) for r in rears]) - TRACK_MAX_M
-        hi = np.array([r.xy.max(axis=0) for r in rears]) + TRACK_MAX_M
-        tree = shapely.STRtree(as_linestrings([r.xy for r in rears]))
-        left, right = tree.query(shapely.box(lo[:, 0], lo[:, 1], hi[:, 0], hi[:, 1]))
+        left, right = box_neighbours([r.xy for r in rears], TRACK_MAX_M)
         for ia, ib in zip(left.tolist(), right.tolist(), strict=True):
-            if ia >= ib:
-                continue
             glance = rears[ia].xy[:: max(len(rears[ia].xy) // 16, 1)]
             near, _ = rears[ib].index.distance_and_position(glance, TRACK_MAX_M)
             if not (near <= TRACK_MAX_M).any():
