@@ -47,6 +47,13 @@ AREA_MARGIN_FRACTION = 0.1
 #: Relative length error the frame promises near the data: 1 mm per km.
 LENGTH_TOLERANCE = 1e-6
 
+#: Largest error, in metres on the ground, that a fitted polynomial may make where it stands in
+#: for PROJ's conversion of a large array (see :func:`_convert`): a thousandth of a millimetre.
+FIT_TOLERANCE_M = 1e-6
+
+#: Fewest points for which fitting a stand-in pays: below this PROJ converts every point.
+FIT_MIN_POINTS = 20_000
+
 #: Centre coordinates are rounded to this many decimals of a degree (1e-9 deg is 0.1 mm), so that
 #: the PROJ string in :meth:`LocalFrame.describe` rebuilds exactly the same frame.
 _CENTRE_DECIMALS = 9
@@ -225,6 +232,124 @@ def _local_crs(geo: pyproj.CRS, lon0: float, lat0: float) -> pyproj.CRS:
 
 
 # ---------------------------------------------------------------------------------------------
+# Converting large arrays
+
+#: total degrees of the stand-in polynomials tried, cheapest first, and the Chebyshev nodes per
+#: axis they are fitted on
+_FIT_DEGREES = (4, 6)
+_FIT_NODES = 10
+#: check points per axis, evenly spaced over the fitted square, edges and corners included (an
+#: even number, so that none falls on the square's centre, see :func:`_convert`)
+_CHECK_POINTS = 20
+#: vertices of the data itself that are also checked
+_CHECK_SAMPLE = 1024
+
+
+def _exact(
+    transformer: pyproj.Transformer, x: FloatArray, y: FloatArray
+) -> tuple[FloatArray, FloatArray]:
+    xs, ys = transformer.transform(x, y)
+    return np.asarray(xs, dtype=np.float64), np.asarray(ys, dtype=np.float64)
+
+
+def _monomials(u: FloatArray, v: FloatArray, degree: int) -> FloatArray:
+    """Columns u**i * v**j for i + j <= degree."""
+    cols = []
+    ui = np.ones_like(u)
+    for i in range(degree + 1):
+        term = ui
+        for _ in range(degree + 1 - i):
+            cols.append(term)
+            term = term * v
+        ui = ui * u
+    return np.column_stack(cols)
+
+
+def _evaluate(coef: FloatArray, u: FloatArray, v: FloatArray, degree: int) -> FloatArray:
+    """The polynomial with :func:`_monomials` coefficients ``coef``, by Horner's rule in v
+    inside Horner's rule in u (no column matrix for the whole array)."""
+    offsets = np.cumsum([0] + [degree + 1 - i for i in range(degree + 1)])
+    out = np.zeros_like(u)
+    for i in range(degree, -1, -1):
+        c = coef[offsets[i] : offsets[i + 1]]
+        inner = np.full_like(v, c[-1])
+        for cj in c[-2::-1]:
+            inner *= v
+            inner += cj
+        out *= u
+        out += inner
+    return out
+
+
+def _convert(
+    transformer: pyproj.Transformer, x: npt.ArrayLike, y: npt.ArrayLike, *, to_metres: bool
+) -> tuple[FloatArray, FloatArray]:
+    """``transformer`` applied to (x, y); for a large array, by a fitted polynomial when one is
+    shown to match PROJ within :data:`FIT_TOLERANCE_M`.
+
+    PROJ's azimuthal equidistant projection solves a geodesic for each point (about 0.7 us), so
+    a whole layer costs a few tenths of a second each way. Over a layer's extent the conversion
+    is a smooth function, and a polynomial of low degree, fitted on a grid of Chebyshev nodes
+    that PROJ converts, reproduces it to nanometres. It is used only after it matches PROJ
+    within the tolerance (converted to output units through its own gradient when the output is
+    not metres) on a denser grid over the whole fitted square, edges and corners included, and
+    on a sample of the points themselves (except where PROJ itself snaps a point within 0.6 mm
+    of the frame's centre onto the centre); otherwise (a layer across the antimeridian or a pole,
+    a huge extent, points PROJ cannot convert) every point goes through PROJ.
+    """
+    xa = np.asarray(x, dtype=np.float64)
+    ya = np.asarray(y, dtype=np.float64)
+    if xa.size < FIT_MIN_POINTS or xa.shape != ya.shape:
+        return _exact(transformer, xa, ya)
+    xf, yf = xa.ravel(), ya.ravel()
+    if not (np.isfinite(xf).all() and np.isfinite(yf).all()):
+        return _exact(transformer, xa, ya)
+    lo_x, hi_x, lo_y, hi_y = xf.min(), xf.max(), yf.min(), yf.max()
+    cx, cy = 0.5 * (lo_x + hi_x), 0.5 * (lo_y + hi_y)
+    half = 0.5 * max(hi_x - lo_x, hi_y - lo_y)
+    if not half > 0:
+        return _exact(transformer, xa, ya)
+    nodes = np.cos(np.pi * (np.arange(_FIT_NODES) + 0.5) / _FIT_NODES)
+    grid = np.linspace(-1.0, 1.0, _CHECK_POINTS)
+    nu, nv = (a.ravel() for a in np.meshgrid(nodes, nodes))
+    gu, gv = (a.ravel() for a in np.meshgrid(grid, grid))
+    step = max(xf.size // _CHECK_SAMPLE, 1)
+    su, sv = (xf[::step] - cx) / half, (yf[::step] - cy) / half
+    cu, cv = np.concatenate([gu, su]), np.concatenate([gv, sv])
+    with np.errstate(all="ignore"):
+        fx, fy = _exact(transformer, cx + half * nu, cy + half * nv)
+        kx, ky = _exact(transformer, cx + half * cu, cy + half * cv)
+    if not (np.isfinite(fx).all() and np.isfinite(fy).all()):
+        return _exact(transformer, xa, ya)
+    if not (np.isfinite(kx).all() and np.isfinite(ky).all()):
+        return _exact(transformer, xa, ya)
+    if to_metres:
+        # PROJ's aeqd returns exactly (0, 0) for any point within 1e-10 radians (0.6 mm) of the
+        # centre: a shortcut of its own, not the projection, so not a reference to check by
+        keep = (kx != 0.0) | (ky != 0.0)
+        cu, cv, kx, ky = cu[keep], cv[keep], kx[keep], ky[keep]
+    for degree in _FIT_DEGREES:
+        basis = _monomials(nu, nv, degree)
+        coef_x = np.asarray(np.linalg.lstsq(basis, fx, rcond=None)[0], dtype=np.float64)
+        coef_y = np.asarray(np.linalg.lstsq(basis, fy, rcond=None)[0], dtype=np.float64)
+        if to_metres:
+            tol_x = tol_y = FIT_TOLERANCE_M
+        else:
+            # output units per metre: the gradient of the linear terms (input is metres)
+            lin = degree + 1  # index of the u term; the v term is index 1
+            tol_x = FIT_TOLERANCE_M * float(np.hypot(coef_x[1], coef_x[lin])) / half
+            tol_y = FIT_TOLERANCE_M * float(np.hypot(coef_y[1], coef_y[lin])) / half
+        err_x = np.abs(_evaluate(coef_x, cu, cv, degree) - kx).max()
+        err_y = np.abs(_evaluate(coef_y, cu, cv, degree) - ky).max()
+        if err_x <= tol_x and err_y <= tol_y:
+            u, v = (xf - cx) / half, (yf - cy) / half
+            out_x = _evaluate(coef_x, u, v, degree).reshape(xa.shape)
+            out_y = _evaluate(coef_y, u, v, degree).reshape(xa.shape)
+            return out_x, out_y
+    return _exact(transformer, xa, ya)
+
+
+# ---------------------------------------------------------------------------------------------
 # The frame
 
 
@@ -306,10 +431,7 @@ class LocalFrame:
         >>> float(np.hypot(x, y)[0]) < 1e-6
         True
         """
-        xs, ys = self._forward.transform(
-            np.asarray(x, dtype=np.float64), np.asarray(y, dtype=np.float64)
-        )
-        return np.asarray(xs, dtype=np.float64), np.asarray(ys, dtype=np.float64)
+        return _convert(self._forward, x, y, to_metres=True)
 
     def from_local(
         self,
@@ -343,10 +465,7 @@ class LocalFrame:
         (3.0, 0.0)
         """
         transformer = self._inverse if crs is None else self._output_transformer(crs)
-        xs, ys = transformer.transform(
-            np.asarray(x, dtype=np.float64), np.asarray(y, dtype=np.float64)
-        )
-        return np.asarray(xs, dtype=np.float64), np.asarray(ys, dtype=np.float64)
+        return _convert(transformer, x, y, to_metres=False)
 
     def _output_transformer(self, crs: pyproj.CRS | str) -> pyproj.Transformer:
         target = pyproj.CRS.from_user_input(crs)

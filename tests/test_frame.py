@@ -12,6 +12,7 @@ import pytest
 from hypothesis import example, given, settings
 from hypothesis import strategies as st
 
+from geoops import frame as frame_mod
 from geoops.errors import BadInput, CrsError
 from geoops.frame import LocalFrame, build_frame, resolve_crs
 
@@ -396,3 +397,89 @@ def test_many_vertices_build_quickly_enough_to_use() -> None:
     assert notes == []
     assert frame.lon0 == pytest.approx(25.0, abs=1e-4)
     assert frame.lat0 == pytest.approx(60.15, abs=1e-4)
+
+
+# --- large arrays: the fitted stand-in for PROJ ----------------------------------------------
+# Reference: pyproj (PROJ) itself, called point by point through a fresh Transformer; the
+# stand-in must agree within FIT_TOLERANCE_M (a micrometre) or not be used at all.
+
+
+def _exact_local(frame: LocalFrame, x: np.ndarray, y: np.ndarray) -> tuple[np.ndarray, ...]:
+    t = pyproj.Transformer.from_crs(frame.source_crs, frame.local_crs, always_xy=True)
+    return tuple(np.asarray(a) for a in t.transform(x, y))
+
+
+@pytest.mark.parametrize(
+    ("code", "x0", "y0", "size"),
+    [
+        ("EPSG:32633", 500_000.0, 5_300_000.0, 3_000.0),  # UTM, a survey block
+        ("EPSG:32633", 430_000.0, 5_300_000.0, 40_000.0),  # UTM, 40 km, off the central meridian
+        ("EPSG:27700", 400_000.0, 300_000.0, 15_000.0),  # British National Grid
+        ("EPSG:2227", 6_000_000.0, 2_100_000.0, 30_000.0),  # US survey feet
+        ("EPSG:32633", 320_000.0, 6_300_000.0, 360_000.0),  # a UTM zone's width, 57 N
+        ("EPSG:4326", 16.5, 47.8, 0.2),  # degrees
+        ("EPSG:3031", 0.0, -1_000_000.0, 10_000.0),  # polar stereographic, Antarctica
+    ],
+)
+def test_large_arrays_convert_within_a_micrometre_of_proj(
+    code: str, x0: float, y0: float, size: float, monkeypatch: pytest.MonkeyPatch
+) -> None:
+    rng = np.random.default_rng(5)
+    n = frame_mod.FIT_MIN_POINTS + 5_000
+    x = x0 + size * rng.random(n)
+    y = y0 + size * rng.random(n)
+    frame, _ = build_frame(x, y, pyproj.CRS(code))
+    sizes: list[int] = []
+    exact = frame_mod._exact
+    monkeypatch.setattr(
+        frame_mod, "_exact", lambda t, a, b: sizes.append(np.size(a)) or exact(t, a, b)
+    )
+    lx, ly = frame.to_local(x, y)
+    assert max(sizes) < n // 10  # the stand-in was used: PROJ saw only the fit's own points
+    ex, ey = _exact_local(frame, x, y)
+    assert np.abs(lx - ex).max() <= frame_mod.FIT_TOLERANCE_M
+    assert np.abs(ly - ey).max() <= frame_mod.FIT_TOLERANCE_M
+    # back to the source, and on to lon/lat: within a micrometre expressed in those units
+    for target in (code, "EPSG:4326"):
+        bx, by = frame.from_local(lx, ly, crs=target)
+        t = pyproj.Transformer.from_crs(frame.local_crs, target, always_xy=True)
+        ex, ey = (np.asarray(a) for a in t.transform(lx, ly))
+        mx, my = _metres_per_unit(target, float(np.median(ey)))
+        assert np.abs(bx - ex).max() * mx <= 1.05 * frame_mod.FIT_TOLERANCE_M
+        assert np.abs(by - ey).max() * my <= 1.05 * frame_mod.FIT_TOLERANCE_M
+
+
+def _metres_per_unit(code: str, lat: float) -> tuple[float, float]:
+    """Metres per unit along x and y: a US survey foot is 1200/3937 m by definition; a degree
+    of latitude is about 111.2 km, and of longitude that times cos(latitude)."""
+    if code == "EPSG:2227":
+        return 1200 / 3937, 1200 / 3937
+    if code == "EPSG:4326":
+        return 111_200.0 * math.cos(math.radians(lat)), 111_200.0
+    return 1.0, 1.0
+
+
+def test_large_array_across_the_antimeridian_goes_through_proj() -> None:
+    n = frame_mod.FIT_MIN_POINTS
+    lon = np.concatenate([np.linspace(179.9, 179.999, n), np.linspace(-179.999, -179.9, n)])
+    lat = np.linspace(-40.0, -39.95, 2 * n)
+    frame, _ = build_frame(lon, lat, pyproj.CRS("EPSG:4326"))
+    lx, ly = frame.to_local(lon, lat)
+    ex, ey = _exact_local(frame, lon, lat)
+    np.testing.assert_array_equal(lx, ex)
+    np.testing.assert_array_equal(ly, ey)
+    assert np.abs(lx).max() < 10_000.0  # the frame straddles the antimeridian
+
+
+def test_stand_in_is_refused_where_a_low_degree_cannot_follow() -> None:
+    # ten degrees square (over 1000 km): too curved for degree 6 to stay within a micrometre,
+    # so the conversion must be PROJ's own, point for point
+    n = frame_mod.FIT_MIN_POINTS
+    rng = np.random.default_rng(3)
+    x = 10.0 + 10.0 * rng.random(n)
+    y = 55.0 + 10.0 * rng.random(n)
+    frame, _ = build_frame(x, y, pyproj.CRS("EPSG:4326"))
+    lx, ly = frame.to_local(x, y)
+    ex, ey = _exact_local(frame, x, y)
+    np.testing.assert_array_equal(lx, ex)
+    np.testing.assert_array_equal(ly, ey)
