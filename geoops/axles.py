@@ -12,6 +12,7 @@ decide directions or write output.
 
 from __future__ import annotations
 
+import math
 from dataclasses import dataclass
 
 import numpy as np
@@ -140,8 +141,17 @@ def choose_axles(costs: dict[tuple[int, int], float]) -> list[tuple[int, int]]:
     """Pairs of sides read as one vehicle: the most vehicles first (every side of a trail
     driven by several four-wheeled vehicles finds its partner), then the least total cost.
 
-    Exact maximum-cardinality minimum-cost matching (networkx) on each connected group of
-    candidates; a group of one candidate is taken as it is.
+    Exact maximum-cardinality minimum-cost matching on each connected group of candidates: a
+    group of one candidate is taken as it is, a small group (at most
+    :data:`SEARCH_MAX_EDGES` candidates, nearly all of them: a trail holds a few vehicles
+    side by side) by trying every matching, a larger one by networkx's blossom matching.
+
+    Examples
+    --------
+    >>> choose_axles({(0, 1): 0.5, (1, 2): 0.1, (2, 3): 0.5})  # two vehicles, not one
+    [(0, 1), (2, 3)]
+    >>> choose_axles({(0, 1): 0.5, (1, 2): 0.1})
+    [(1, 2)]
     """
     if not costs:
         return []
@@ -162,12 +172,65 @@ def choose_axles(costs: dict[tuple[int, int], float]) -> list[tuple[int, int]]:
     for edges in groups.values():
         if len(edges) == 1:
             out.extend(edges)
-            continue
-        import networkx as nx  # only for crowded trails (about 0.2 s to import)
-
-        g = nx.Graph()
-        top = max(edges.values()) + 1.0
-        for (a, b), c in edges.items():
-            g.add_edge(a, b, weight=top - c)
-        out.extend(tuple(sorted(e)) for e in nx.max_weight_matching(g, maxcardinality=True))
+        elif len(edges) <= SEARCH_MAX_EDGES:
+            out.extend(_matching_by_search(edges))
+        else:
+            out.extend(_matching_by_blossom(edges))
     return sorted(out)
+
+
+#: groups of candidates up to this size are matched by trying every matching (a group of n
+#: candidates has at most 2^n matchings; networkx takes about 0.2 s to import)
+SEARCH_MAX_EDGES = 12
+
+
+def _matching_by_search(edges: dict[tuple[int, int], float]) -> list[tuple[int, int]]:
+    """The maximum-cardinality matching of least total cost, by trying every matching; exact
+    ties of the total go to the first pairs in sorted order."""
+    cost = {(min(a, b), max(a, b)): c for (a, b), c in edges.items()}
+    partners: dict[int, list[int]] = {}
+    for a, b in cost:
+        partners.setdefault(a, []).append(b)
+    nodes = sorted({k for e in cost for k in e})
+    best: tuple[int, float, list[tuple[int, int]]] | None = None
+    chosen: list[tuple[int, int]] = []
+    used: set[int] = set()
+
+    def visit(i: int) -> None:
+        nonlocal best
+        while i < len(nodes) and nodes[i] in used:
+            i += 1
+        if i == len(nodes):
+            pairs = sorted(chosen)
+            key = (-len(pairs), math.fsum(cost[p] for p in pairs), pairs)
+            if best is None or key < best:
+                best = key
+            return
+        node = nodes[i]
+        visit(i + 1)  # node left unmatched
+        used.add(node)
+        for other in partners.get(node, []):
+            if other not in used:
+                used.add(other)
+                chosen.append((node, other))
+                visit(i + 1)
+                chosen.pop()
+                used.discard(other)
+        used.discard(node)
+
+    visit(0)
+    assert best is not None
+    return best[2]
+
+
+def _matching_by_blossom(edges: dict[tuple[int, int], float]) -> list[tuple[int, int]]:
+    """The maximum-cardinality matching of least total cost by networkx's blossom matching."""
+    import networkx as nx  # only for crowded trails (about 0.2 s to import)
+
+    g = nx.Graph()
+    top = max(edges.values()) + 1.0
+    for (a, b), c in edges.items():
+        g.add_edge(a, b, weight=top - c)
+    return [
+        (min(a, b), max(a, b)) for a, b in nx.max_weight_matching(g, maxcardinality=True)
+    ]

@@ -74,3 +74,33 @@ def test_axle_pass_geometry_is_the_rear_axle_midpoint_path():
     first = int(np.argmin(np.hypot(*(truth - p.geometry[0]).T)))
     last = int(np.argmin(np.hypot(*(truth - p.geometry[-1]).T)))
     assert first < last
+
+
+def _blossom(costs):
+    import networkx as nx
+
+    g = nx.Graph()
+    top = max(costs.values()) + 1.0
+    for (a, b), c in costs.items():
+        g.add_edge(a, b, weight=top - c)
+    return sorted(tuple(sorted(e)) for e in nx.max_weight_matching(g, maxcardinality=True))
+
+
+@pytest.mark.parametrize("seed", range(40))
+def test_axle_choice_is_the_maximum_cardinality_minimum_cost_matching(seed):
+    # source: networkx 3.x max_weight_matching (maxcardinality=True), Edmonds' blossom
+    # algorithm: small groups are searched exhaustively, large ones handed to networkx
+    from geoops.axles import SEARCH_MAX_EDGES, choose_axles
+
+    rng = np.random.default_rng(seed)
+    n_nodes = int(rng.integers(3, 12))
+    n_edges = int(rng.integers(2, 2 * SEARCH_MAX_EDGES))
+    costs = {}
+    for _ in range(n_edges):
+        a, b = sorted(rng.choice(n_nodes, 2, replace=False).tolist())
+        costs[(a, b)] = float(rng.uniform(0.0, 2.0))
+    expected = _blossom(costs)
+    got = choose_axles(costs)
+    assert len(got) == len(expected)
+    assert sum(costs[e] for e in got) == pytest.approx(sum(costs[e] for e in expected), abs=1e-12)
+    assert got == expected  # continuous costs: the optimum is unique
