@@ -12,7 +12,7 @@ $(STAMP): pyproject.toml
 	$(BIN)/python -m pip install --quiet --upgrade pip
 	$(BIN)/python -m pip install --quiet -e ".[service,dev]"
 	@# compile the solver's numba kernels once (cached on disk; otherwise the first run pays)
-	$(BIN)/python -c "import geoops.kernels"
+	$(BIN)/python -c "import geoops.kernels, geoops.kernels_clean"
 	touch $(STAMP)
 
 ## make run: analyse the bundled sample layers and print a summary

@@ -13,28 +13,21 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
+from . import kernels_clean
 from .curves import (
     Array,
     NearestOnPolyline,
     arc_length,
     drop_repeats,
-    resample,
-    savgol,
-    smooth,
     turning_angles,
-    unit_tangents,
     windowed_curvature,
 )
 from .errors import BadInput
 
-NDArrayBool = np.ndarray
+# the cleaning constants, defined beside the compiled code that uses them
+from .kernels_clean import MAX_WINDOW_M, MIN_WINDOW_M, POSITION_WINDOW_SHARE  # noqa: F401
 
-#: smallest and largest smoothing windows, metres  # common practice: a few tyre footprints
-MIN_WINDOW_M = 1.0
-MAX_WINDOW_M = 6.0
-#: position smoothing window as a share of the tangent window: positions need less smoothing
-#: than directions, and heavy smoothing pulls curve extremes inwards
-POSITION_WINDOW_SHARE = 0.5
+NDArrayBool = np.ndarray
 
 
 @dataclass(frozen=True)
@@ -210,46 +203,20 @@ def drop_spikes(xy: Array, passes: int = 2) -> Array:
     return xy
 
 
-def _window_for(sigma: float, spacing: float, length: float) -> float:
-    w = max(8.0 * spacing, 25.0 * sigma, MIN_WINDOW_M)
-    return float(min(w, MAX_WINDOW_M, max(length / 3.0, MIN_WINDOW_M)))
+#: seed of the white noise that :func:`clean_line` propagates to find the tangent variance:
+#: fixed, so the same rut gives the same answer
+NOISE_SEED = 20_26_12
+_normals = np.empty((0, 2))
 
 
-def estimate_noise(raw: Array, smoothed: Array) -> float:
-    """Robust per-axis horizontal noise of raw vertices about a smoothed line, metres.
-
-    Uses the median perpendicular distance; for 2-D isotropic Gaussian noise with per-axis
-    sigma the perpendicular offset is N(0, sigma), whose absolute median is 0.6745 sigma.
-    """
-    d, _, _ = NearestOnPolyline(smoothed).query(raw)
-    return float(np.median(d) / 0.6745)
-
-
-def _tangent_variance(
-    raw: Array, s_raw: Array, pts: Array, s: Array, sigma: float, window_pts: int
-) -> float:
-    """Variance (rad^2) of the tangent direction caused by vertex noise of ``sigma``.
-
-    Propagates seeded white noise on the raw vertices through the same resampling and
-    derivative filter (everything is linear in the noise), so irregular spacing and the
-    filter's actual window are accounted for.
-    """
-    if sigma <= 0 or len(pts) < 7:
-        return 0.0
-    rng = np.random.default_rng(20_26_12)  # fixed: the same rut gives the same answer
-    noise = rng.normal(0.0, sigma, size=raw.shape)
-    noise_pts = np.column_stack(
-        [np.interp(s, s_raw, noise[:, 0]), np.interp(s, s_raw, noise[:, 1])]
-    )
-    w = min(window_pts | 1, len(pts) - (1 - len(pts) % 2))
-    if w < 5:
-        return 0.0
-    d_true = savgol(pts, w, 3, deriv=1)
-    d_noise = savgol(noise_pts, w, 3, deriv=1)
-    norm2 = np.einsum("ij,ij->i", d_true, d_true)
-    ok = norm2 > 0
-    theta = (d_true[ok, 0] * d_noise[ok, 1] - d_true[ok, 1] * d_noise[ok, 0]) / norm2[ok]
-    return float(np.mean(theta**2)) if len(theta) else 0.0
+def _standard_normals(rows: int) -> Array:
+    """The first ``rows`` pairs of standard normal draws from :data:`NOISE_SEED` (the same
+    numbers ``default_rng(NOISE_SEED).normal(0, 1, (rows, 2))`` gives), kept between calls."""
+    global _normals
+    if len(_normals) < rows:
+        size = max(rows, 2 * len(_normals), 4096)
+        _normals = np.random.default_rng(NOISE_SEED).standard_normal((size, 2))
+    return _normals
 
 
 def join_parts(parts: list[Array]) -> tuple[Array, Array]:
@@ -299,51 +266,38 @@ def clean_line(
 ) -> CleanRut:
     """Clean one joined line (see :func:`join_parts`).
 
+    Without a stated ``accuracy`` the noise is estimated: the median distance of the raw
+    vertices to a first smoothing, over 0.6745 (the median absolute deviation of a normal
+    error, per axis), corrected for the share of the noise that smoothing over few vertices
+    keeps. The smoothing window follows from the noise and the vertex spacing; the line is
+    resampled at a twelfth of it, the positions smoothed over half the window and the tangents
+    taken from the derivative over the whole window (cubic Savitzky-Golay fits). The tangents'
+    variance comes from seeded white noise of the same sigma pushed through the same
+    resampling and filter. The arithmetic runs compiled
+    (:func:`geoops.kernels_clean.clean_track`).
+
     ``estimated_sigma`` reuses a noise estimate made on a longer line (e.g. the whole rut when
     this is one leg of it); it is reported as estimated, not stated.
     """
     if len(xy) < 2:
         raise BadInput("A rut has fewer than two distinct vertices.", "Remove or fix that line.")
-    s_raw = arc_length(xy)
-    seg = np.diff(s_raw)
-    gap_seg = gap_after[:-1]
-    raw_length = float(seg[~gap_seg].sum()) if len(seg) else 0.0
-    spacing = float(np.median(seg[~gap_seg])) if (~gap_seg).any() else float(s_raw[-1])
-    total = float(s_raw[-1])
-    if total <= 0:
-        raise BadInput("A rut has zero length.", "Remove or fix that line.")
-
     if accuracy is not None and accuracy > 0:
-        sigma, source = float(accuracy), "stated"
+        sigma_in, source = float(accuracy), "stated"
     elif estimated_sigma is not None:
-        sigma, source = float(estimated_sigma), "estimated"
+        sigma_in, source = float(estimated_sigma), "estimated"
     else:
-        w0 = _window_for(0.0, spacing, total)
-        step0 = float(np.clip(min(w0 / 10.0, spacing / 2.0), 0.02, 0.5))
-        pts0, _ = resample(xy, step0)
-        sm0 = smooth(pts0, max(int(round(w0 / step0)), 5))
-        n_in_window = max(w0 / max(spacing, 1e-6), 5.0)
-        sigma = estimate_noise(xy, sm0) / np.sqrt(max(1.0 - 4.0 / n_in_window, 0.2))
-        source = "estimated"
-    window = _window_for(sigma, spacing, total)
-    step = float(np.clip(window / 12.0, 0.02, 0.5))
-    pts, s = resample(xy, step)
-    win_pts = max(int(round(window / step)), 5)
-    pos_pts = max(int(round(POSITION_WINDOW_SHARE * window / step)), 5)
-    sm = smooth(pts, pos_pts)
-    tangents = unit_tangents(pts, win_pts)
-    tangent_var = _tangent_variance(xy, s_raw, pts, s, sigma, win_pts)
-    # samples inside a bridged gap carry no observation
-    gap_start = s_raw[:-1][gap_seg]
-    gap_end = s_raw[1:][gap_seg]
-    has_data = np.ones(len(s), dtype=bool)
-    # ... nor do samples within half a window of a gap: their local fits reach into the bridge
-    half = 0.5 * window
-    for a, b in zip(gap_start, gap_end, strict=True):
-        has_data &= ~((s > a - half) & (s < b + half))
+        sigma_in, source = float("nan"), "estimated"
+    xy = np.ascontiguousarray(xy, dtype=np.float64)
+    gap_after = np.ascontiguousarray(gap_after, dtype=np.bool_)
+    status, sm, _, tangents, has_data, numbers = kernels_clean.clean_track(
+        xy, gap_after, sigma_in, _standard_normals(len(xy))
+    )
+    if status == kernels_clean.ZERO_LENGTH:
+        raise BadInput("A rut has zero length.", "Remove or fix that line.")
+    sigma, window, step, tangent_var, raw_length, _ = numbers
     return CleanRut(
         xy=sm,
-        step=float(s[1] - s[0]) if len(s) > 1 else step,
+        step=step,
         has_data=has_data,
         sigma=float(sigma),
         sigma_source=source,

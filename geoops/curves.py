@@ -6,7 +6,6 @@ knowledge of ruts or vehicles: that lives in :mod:`geoops.clean` and :mod:`geoop
 
 from __future__ import annotations
 
-import functools
 from dataclasses import dataclass, field
 from typing import Any
 
@@ -14,7 +13,7 @@ import numpy as np
 import shapely
 from numpy.typing import NDArray
 
-from . import kernels
+from . import kernels, kernels_clean
 
 Array = NDArray[np.float64]
 
@@ -94,8 +93,8 @@ def savgol(y: Array, window: int, order: int, deriv: int = 0) -> Array:
     """Savitzky-Golay filter along axis 0, with polynomial fits at the ends ("interp" mode).
 
     Equivalent to ``scipy.signal.savgol_filter(y, window, order, deriv, axis=0,
-    mode="interp")`` (derivative per sample), without importing scipy.signal, whose import
-    alone costs most of a second.
+    mode="interp")`` (derivative per sample), compiled (:func:`geoops.kernels_clean.savgol`)
+    and without importing scipy.signal, whose import alone costs most of a second.
 
     Examples
     --------
@@ -107,42 +106,9 @@ def savgol(y: Array, window: int, order: int, deriv: int = 0) -> Array:
     n = len(y)
     if window % 2 == 0 or window > n or window <= order:
         raise ValueError("window must be odd, at most the length and above the order")
-    half = window // 2
-    kernel, head, tail = _savgol_tables(window, order, deriv)
-    out = np.empty_like(y, dtype=np.float64)
-    # interior: a correlation with the kernel, computed as a sliding-window product
-    windows = np.lib.stride_tricks.sliding_window_view(y, window, axis=0)  # (n-w+1, k, w)
-    out[half : n - half] = windows @ kernel
-    # ends: the polynomial fitted to the first / last window, evaluated at the end samples
-    out[:half] = head @ y[:window]
-    out[n - half :] = tail @ y[n - window :]
-    return out
-
-
-@functools.lru_cache(maxsize=256)
-def _savgol_tables(window: int, order: int, deriv: int) -> tuple[Array, Array, Array]:
-    """The centre kernel ``(w,)`` and the end matrices ``(w // 2, w)`` of a Savitzky-Golay
-    filter: each maps a window's values to fitted values (or derivatives) at its samples.
-    Cached: a layer's ruts share a handful of window sizes."""
-    half = window // 2
-    pos = np.arange(-half, half + 1, dtype=np.float64)
-    pinv = np.linalg.pinv(np.vander(pos, order + 1, increasing=True))  # (p+1, w)
-    # derivative of the polynomial with coefficients c: D @ c, D (p+1, p+1)
-    dmat = np.eye(order + 1)
-    for _ in range(deriv):
-        dmat = np.diag(np.arange(1.0, order + 1), 1) @ dmat
-    at_pos = np.vander(pos, order + 1, increasing=True) @ dmat @ pinv  # (w, w)
-    kernel = at_pos[half]
-    tables = (kernel, at_pos[:half], at_pos[half + 1 :])
-    for t in tables:
-        t.setflags(write=False)
-    return tables
-
-
-def _odd_window(points: int, n: int, order: int) -> int:
-    w = min(points, n if n % 2 == 1 else n - 1)
-    w = w if w % 2 == 1 else w - 1
-    return max(w, order + 2 if (order + 2) % 2 == 1 else order + 3)
+    a = np.ascontiguousarray(y, dtype=np.float64)
+    out = kernels_clean.savgol(a.reshape(n, -1), int(window), int(order), int(deriv))
+    return np.asarray(out.reshape(a.shape))
 
 
 def smooth(xy: Array, window_pts: int, order: int = 3) -> Array:
@@ -163,13 +129,8 @@ def smooth(xy: Array, window_pts: int, order: int = 3) -> Array:
     >>> bool(np.allclose(smooth(line, 5), line))
     True
     """
-    n = len(xy)
-    if n < order + 2:
-        return xy.copy()
-    w = _odd_window(window_pts, n, order)
-    if w > n:
-        return xy.copy()
-    return savgol(xy, w, order)
+    a = np.ascontiguousarray(xy, dtype=np.float64)
+    return np.asarray(kernels_clean.smooth(a, int(window_pts), int(order)))
 
 
 def unit_tangents(xy: Array, window_pts: int = 5, order: int = 3) -> Array:
@@ -185,17 +146,8 @@ def unit_tangents(xy: Array, window_pts: int = 5, order: int = 3) -> Array:
     >>> bool(np.allclose(u[25], [-np.sin(t[25]), np.cos(t[25])], atol=1e-4))
     True
     """
-    n = len(xy)
-    if n < 2:
-        return np.zeros_like(xy)
-    if n < order + 2:
-        d = np.gradient(xy, axis=0)
-    else:
-        w = _odd_window(window_pts, n, order)
-        d = savgol(xy, w, order, deriv=1)
-    norm = np.hypot(d[:, 0], d[:, 1])
-    norm[norm == 0] = 1.0
-    return np.asarray(d / norm[:, None], dtype=np.float64)
+    a = np.ascontiguousarray(xy, dtype=np.float64)
+    return np.asarray(kernels_clean.unit_tangents(a, int(window_pts), int(order)))
 
 
 def turning_angles(xy: Array) -> Array:
@@ -254,27 +206,14 @@ class NearestOnPolyline:
 
     def __post_init__(self) -> None:
         self.xy = np.ascontiguousarray(self.xy, dtype=np.float64)
-        self._s = arc_length(self.xy)
-        self._x, self._y = self.xy[:, 0].copy(), self.xy[:, 1].copy()
-        self._abx = np.diff(self._x)
-        self._aby = np.diff(self._y)
-        den = self._abx**2 + self._aby**2
-        self._seg_len = np.sqrt(den)
-        self._inv_den = np.where(den > 0, 1.0 / np.where(den > 0, den, 1.0), 0.0)
         if len(self.xy) >= 2:
-            longest = float(self._seg_len.max())
-            x0, y0 = float(self._x.min()), float(self._y.min())
-            cell = kernels.grid_cell(
-                float(self._x.max()) - x0, float(self._y.max()) - y0, len(self.xy),
-                float(self._s[-1]), longest,
-            )
             #: the kernels' view of the line (see :func:`geoops.kernels.closest`)
-            self.poly = (self._x, self._y, self._abx, self._aby, self._inv_den, self._s,
-                         self._seg_len)
-            self.geo = (x0, y0, cell, 0.5 * longest)
-            self.grid = kernels.build_grid(self._x, self._y, x0, y0, cell) + kernels.build_grid(
-                self._x, self._y, x0, y0, cell * kernels.COARSE
+            self.poly, self.geo, self.grid = kernels_clean.index(self.xy)
+            self._x, self._y, self._abx, self._aby, self._inv_den, self._s, self._seg_len = (
+                self.poly
             )
+        else:
+            self._s = arc_length(self.xy)
 
     def __getstate__(self) -> dict[str, Array]:
         # only the line: the derived arrays and bucket grids are rebuilt where they are first

@@ -21,7 +21,6 @@ forked workers inherit them compiled.
 
 from __future__ import annotations
 
-import math
 from collections.abc import Callable
 from typing import Any
 
@@ -45,18 +44,6 @@ def _compiled(signature: str) -> Callable[[Callable[..., Any]], Any]:
 #: largest number of grid cells per vertex of the line (bounds the grid's memory on long,
 #: winding lines: the cell grows instead)
 CELLS_PER_VERTEX = 16
-
-
-def grid_cell(span_x: float, span_y: float, n: int, length: float, longest: float) -> float:
-    """Cell size (m) for the bucket grid of a polyline of ``n`` vertices and total ``length``
-    whose vertices span ``span_x`` by ``span_y``: about two vertex spacings, at least half the
-    ``longest`` segment (so the search stops within a ring or two of the nearest vertex), and
-    large enough that the grid has at most :data:`CELLS_PER_VERTEX` cells per vertex."""
-    typical = length / max(n - 1, 1)
-    area_cell = math.sqrt(max(span_x, 1e-9) * max(span_y, 1e-9) / (CELLS_PER_VERTEX * n))
-    linear_cell = max(span_x, span_y, 1e-9) / (CELLS_PER_VERTEX * n)
-    cell = max(2.0 * typical, 0.5 * longest, area_cell, linear_cell)
-    return cell if cell > 0 and math.isfinite(cell) else 1.0
 
 
 @_compiled("Tuple((int64, int64, int64[::1], int64[::1]))(float64[::1], float64[::1], "

@@ -21,6 +21,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
+from . import kernels_clean
 from .curves import Array, arc_length, resample
 
 #: arc length on each side of a vertex over which its turn is measured, metres
@@ -69,6 +70,11 @@ def find_reversals(xy: Array, base_m: float = TURN_BASE_M) -> list[Reversal]:
     (163, [0.99, -0.15])
     """
     if len(xy) < 3:
+        return []
+    # most lines never turn back: one compiled pass says so (with a margin, so that what the
+    # numpy code below finds is unchanged)
+    least = kernels_clean.least_turn_cosine(np.ascontiguousarray(xy, dtype=np.float64), base_m)
+    if least > np.cos(np.radians(REVERSAL_TURN_DEG - 1e-6)):
         return []
     step = base_m / 8.0
     pts, s = resample(xy, step)

@@ -1,0 +1,384 @@
+"""Compiled kernels for cleaning a rut (numba): resampling, Savitzky-Golay smoothing, the noise
+estimate, tangents and their noise, and the polyline index of :mod:`geoops.kernels`.
+
+:func:`geoops.clean.clean_line` does, per rut, a few dozen small array steps: one or two
+resamplings, five Savitzky-Golay filters, a nearest-point search of every raw vertex, a noise
+propagation. In numpy each step costs more in calls and temporaries than in arithmetic (about
+0.7 ms a rut); here the whole chain is one call. The numpy versions in :mod:`geoops.curves`
+remain for everything else, and the tests check both give the same numbers
+(``tests/test_clean_kernels.py``).
+
+The cleaning constants live here rather than in :mod:`geoops.clean` (which re-exports them):
+numba bakes a module's globals into the compiled code and its on-disk cache is keyed on this
+file alone, so a constant changed elsewhere would silently keep its old value.
+
+Compiled and cached like :mod:`geoops.kernels` (explicit signatures, ``cache=True``).
+"""
+
+from __future__ import annotations
+
+import math
+
+import numpy as np
+from numba import njit
+
+from .kernels import (
+    _GEO,
+    _GRID,
+    _POLY,
+    CELLS_PER_VERTEX,
+    COARSE,
+    _compiled,
+    _nearest,
+    build_grid,
+)
+
+#: smallest and largest smoothing windows, metres  # common practice: a few tyre footprints
+MIN_WINDOW_M = 1.0
+MAX_WINDOW_M = 6.0
+#: position smoothing window as a share of the tangent window: positions need less smoothing
+#: than directions, and heavy smoothing pulls curve extremes inwards
+POSITION_WINDOW_SHARE = 0.5
+#: order of the local polynomial fits
+ORDER = 3
+
+#: what :func:`clean_track` returns besides the arrays: its status
+CLEANED, ZERO_LENGTH = 0, 1
+
+
+@njit(nogil=True, inline="always")
+def _arc_length(xy):
+    n = xy.shape[0]
+    s = np.empty(n)
+    s[0] = 0.0
+    acc = 0.0
+    for i in range(1, n):
+        acc += math.hypot(xy[i, 0] - xy[i - 1, 0], xy[i, 1] - xy[i - 1, 1])
+        s[i] = acc
+    return s
+
+
+@njit(nogil=True, inline="always")
+def _resample(xy, s_raw, step):
+    """:func:`geoops.curves.resample` of ``xy`` (arc length ``s_raw``): points and positions."""
+    total = s_raw[-1]
+    n = max(int(math.ceil(total / step - 1e-9)), 1)
+    s = np.linspace(0.0, total, n + 1)
+    s0 = s_raw.copy()
+    for i in range(1, len(s0)):
+        if s0[i] < s0[i - 1]:
+            s0[i] = s0[i - 1]
+    pts = np.empty((n + 1, 2))
+    pts[:, 0] = np.interp(s, s0, xy[:, 0])
+    pts[:, 1] = np.interp(s, s0, xy[:, 1])
+    return pts, s
+
+
+@njit(nogil=True, inline="always")
+def _odd_window(points, n, order):
+    """:func:`geoops.curves._odd_window`: the window made odd, within the line, above the order."""
+    w = min(points, n if n % 2 == 1 else n - 1)
+    w = w if w % 2 == 1 else w - 1
+    low = order + 2 if (order + 2) % 2 == 1 else order + 3
+    return max(w, low)
+
+
+@_compiled("float64[:, ::1](int64, int64, int64)")
+def savgol_matrix(window, order, deriv):
+    """The ``(w, w)`` matrix mapping one window's values to the fitted polynomial's values (or
+    ``deriv``-th derivative per sample) at each of its samples: row ``w // 2`` is the centre
+    kernel, the rows before and after it serve the line's ends. Positions are scaled to
+    [-1, 1] before the least-squares fit, which keeps its normal equations well conditioned
+    (solved directly: a small SVD per call would cost more than the filtering)."""
+    half = window // 2
+    scale = max(half, 1)
+    vander = np.empty((window, order + 1))
+    for i in range(window):
+        p = (i - half) / scale
+        v = 1.0
+        for k in range(order + 1):
+            vander[i, k] = v
+            v *= p
+    pinv = np.linalg.solve(vander.T @ vander, vander.T)  # (order + 1, w)
+    # derivative of the polynomial in scaled position, then per sample (1 / scale per order)
+    deriv_vander = np.zeros((window, order + 1))
+    for i in range(window):
+        p = (i - half) / scale
+        for k in range(deriv, order + 1):
+            c = 1.0
+            for m in range(deriv):
+                c *= k - m
+            deriv_vander[i, k] = c * p ** (k - deriv) / scale**deriv
+    return np.ascontiguousarray(deriv_vander @ pinv)
+
+
+@njit(nogil=True, inline="always")
+def _savgol(y, window, order, deriv):
+    """:func:`geoops.curves.savgol` of the columns of ``y`` ("interp" ends)."""
+    n = y.shape[0]
+    cols = y.shape[1]
+    half = window // 2
+    mat = savgol_matrix(window, order, deriv)
+    out = np.empty((n, cols))
+    for i in range(half, n - half):
+        for c in range(cols):
+            acc = 0.0
+            for j in range(window):
+                acc += mat[half, j] * y[i - half + j, c]
+            out[i, c] = acc
+    for i in range(half):
+        for c in range(cols):
+            head = 0.0
+            tail = 0.0
+            for j in range(window):
+                head += mat[i, j] * y[j, c]
+                tail += mat[half + 1 + i, j] * y[n - window + j, c]
+            out[i, c] = head
+            out[n - half + i, c] = tail
+    return out
+
+
+@_compiled("float64[:, ::1](float64[:, ::1], int64, int64, int64)")
+def savgol(y, window, order, deriv):
+    """Savitzky-Golay filter along axis 0 (see :func:`geoops.curves.savgol`, which checks the
+    arguments and calls this)."""
+    return _savgol(y, window, order, deriv)
+
+
+@njit(nogil=True, inline="always")
+def _smooth(xy, window_pts, order):
+    n = xy.shape[0]
+    if n < order + 2:
+        return xy.copy()
+    w = _odd_window(window_pts, n, order)
+    if w > n:
+        return xy.copy()
+    return _savgol(xy, w, order, 0)
+
+
+@_compiled("float64[:, ::1](float64[:, ::1], int64, int64)")
+def smooth(xy, window_pts, order):
+    """Savitzky-Golay smoothing of a uniformly resampled polyline (window made odd and clipped
+    to the line; the line as it is when too short), see :func:`geoops.curves.smooth`."""
+    return _smooth(xy, window_pts, order)
+
+
+@njit(nogil=True, inline="always")
+def _unit_tangents(xy, window_pts, order):
+    n = xy.shape[0]
+    if n < 2:
+        return np.zeros((n, 2))
+    if n < order + 2:
+        d = np.empty((n, 2))
+        for c in range(2):  # numpy.gradient: one-sided at the ends, central inside
+            d[0, c] = xy[1, c] - xy[0, c]
+            d[n - 1, c] = xy[n - 1, c] - xy[n - 2, c]
+            for i in range(1, n - 1):
+                d[i, c] = 0.5 * (xy[i + 1, c] - xy[i - 1, c])
+    else:
+        d = _savgol(xy, _odd_window(window_pts, n, order), order, 1)
+    for i in range(n):
+        norm = math.hypot(d[i, 0], d[i, 1])
+        if norm == 0.0:
+            norm = 1.0
+        d[i, 0] /= norm
+        d[i, 1] /= norm
+    return d
+
+
+@_compiled("float64[:, ::1](float64[:, ::1], int64, int64)")
+def unit_tangents(xy, window_pts, order):
+    """Unit tangents from the derivative of a local polynomial fit, see
+    :func:`geoops.curves.unit_tangents`."""
+    return _unit_tangents(xy, window_pts, order)
+
+
+@njit(nogil=True, inline="always")
+def _grid_cell(span_x, span_y, n, length, longest):
+    """Cell size (m) for the bucket grid of a polyline of ``n`` vertices and total ``length``
+    whose vertices span ``span_x`` by ``span_y``: about two vertex spacings, at least half the
+    ``longest`` segment (so the search stops within a ring or two of the nearest vertex), and
+    large enough that the grid has at most :data:`geoops.kernels.CELLS_PER_VERTEX` cells per
+    vertex."""
+    typical = length / max(n - 1, 1)
+    area_cell = math.sqrt(max(span_x, 1e-9) * max(span_y, 1e-9) / (CELLS_PER_VERTEX * n))
+    linear_cell = max(span_x, span_y, 1e-9) / (CELLS_PER_VERTEX * n)
+    cell = max(2.0 * typical, 0.5 * longest, area_cell, linear_cell)
+    return cell if cell > 0 and math.isfinite(cell) else 1.0
+
+
+@njit(nogil=True, inline="always")
+def _index(xy):
+    n = xy.shape[0]
+    x = np.ascontiguousarray(xy[:, 0])
+    y = np.ascontiguousarray(xy[:, 1])
+    abx = np.empty(n - 1)
+    aby = np.empty(n - 1)
+    inv_den = np.empty(n - 1)
+    seg_len = np.empty(n - 1)
+    s = _arc_length(xy)
+    longest = 0.0
+    for i in range(n - 1):
+        abx[i] = x[i + 1] - x[i]
+        aby[i] = y[i + 1] - y[i]
+        den = abx[i] * abx[i] + aby[i] * aby[i]
+        seg_len[i] = math.sqrt(den)
+        inv_den[i] = 1.0 / den if den > 0 else 0.0
+        longest = max(longest, seg_len[i])
+    x0 = x.min()
+    y0 = y.min()
+    cell = _grid_cell(x.max() - x0, y.max() - y0, n, s[-1], longest)
+    nx, ny, start, items = build_grid(x, y, x0, y0, cell)
+    nx2, ny2, start2, items2 = build_grid(x, y, x0, y0, cell * COARSE)
+    return ((x, y, abx, aby, inv_den, s, seg_len), (x0, y0, cell, 0.5 * longest),
+            (nx, ny, start, items, nx2, ny2, start2, items2))
+
+
+@_compiled(f"Tuple(({_POLY}, {_GEO}, {_GRID}))(float64[:, ::1])")
+def index(xy):
+    """A polyline of two or more vertices as the kernels of :mod:`geoops.kernels` take it:
+    its arrays ``(x, y, abx, aby, inv_den, s, seg_len)``, the grid geometry ``(x0, y0, cell,
+    half the longest segment)`` and the fine and coarse bucket grids."""
+    return _index(xy)
+
+
+@njit(nogil=True, inline="always")
+def _window_for(sigma, spacing, length):
+    w = max(8.0 * spacing, 25.0 * sigma, MIN_WINDOW_M)
+    return min(w, MAX_WINDOW_M, max(length / 3.0, MIN_WINDOW_M))
+
+
+@njit(nogil=True, inline="always")
+def _median_distance(raw, line):
+    """Median distance of the points ``raw`` to the polyline ``line`` (exact nearest points,
+    as :meth:`geoops.curves.NearestOnPolyline.query`)."""
+    m = raw.shape[0]
+    d = np.empty(m)
+    if line.shape[0] < 2:
+        for q in range(m):
+            d[q] = math.hypot(raw[q, 0] - line[0, 0], raw[q, 1] - line[0, 1])
+        return np.median(d)
+    poly, geo, grid = _index(line)
+    x, y, abx, aby, inv_den, _, _ = poly
+    x0, y0, cell, half_longest = geo
+    nx, ny, start, items, nx2, ny2, start2, items2 = grid
+    for q in range(m):
+        d2, _, _ = _nearest(raw[q, 0], raw[q, 1], x, y, abx, aby, inv_den, x0, y0, cell,
+                            half_longest, nx, ny, start, items, nx2, ny2, start2, items2, np.inf)
+        d[q] = math.sqrt(d2)
+    return np.median(d)
+
+
+@njit(nogil=True, inline="always")
+def _tangent_variance(raw, s_raw, pts, s, sigma, window_pts, z):
+    """:func:`geoops.clean._tangent_variance`, the white noise given as standard normal
+    draws ``z`` (one row per raw vertex)."""
+    n = pts.shape[0]
+    if sigma <= 0 or n < 7:
+        return 0.0
+    w = min(window_pts | 1, n - (1 - n % 2))
+    if w < 5:
+        return 0.0
+    noise_pts = np.empty((n, 2))
+    noise_pts[:, 0] = np.interp(s, s_raw, z[: raw.shape[0], 0] * sigma)
+    noise_pts[:, 1] = np.interp(s, s_raw, z[: raw.shape[0], 1] * sigma)
+    d_true = _savgol(pts, w, ORDER, 1)
+    d_noise = _savgol(noise_pts, w, ORDER, 1)
+    acc = 0.0
+    count = 0
+    for i in range(n):
+        norm2 = d_true[i, 0] * d_true[i, 0] + d_true[i, 1] * d_true[i, 1]
+        if norm2 > 0:
+            theta = (d_true[i, 0] * d_noise[i, 1] - d_true[i, 1] * d_noise[i, 0]) / norm2
+            acc += theta * theta
+            count += 1
+    return acc / count if count else 0.0
+
+
+@_compiled("Tuple((int64, float64[:, ::1], float64[::1], float64[:, ::1], boolean[::1], "
+           "UniTuple(float64, 6)))(float64[:, ::1], boolean[::1], float64, float64[:, ::1])")
+def clean_track(xy, gap_after, sigma_in, z):
+    """The arithmetic of :func:`geoops.clean.clean_line` for one joined line (two or more
+    vertices, ``gap_after`` per vertex): ``sigma_in`` is the noise to use, or NaN to estimate
+    it; ``z`` standard normal draws, a row per vertex at least (see
+    :func:`geoops.clean._tangent_variance`).
+
+    Returns the status (:data:`CLEANED` or :data:`ZERO_LENGTH`), the smoothed points, their
+    arc-length positions, unit tangents, which samples hold data, and (sigma, window, step,
+    tangent variance, raw length, spacing)."""
+    s_raw = _arc_length(xy)
+    n_raw = xy.shape[0]
+    raw_length = 0.0
+    plain = 0
+    for i in range(n_raw - 1):
+        if not gap_after[i]:
+            plain += 1
+    seg = np.empty(plain)
+    k = 0
+    for i in range(n_raw - 1):
+        if not gap_after[i]:
+            seg[k] = s_raw[i + 1] - s_raw[i]
+            raw_length += seg[k]
+            k += 1
+    total = s_raw[-1]
+    spacing = np.median(seg) if plain > 0 else total
+    if not total > 0:
+        empty = np.empty((0, 2))
+        return (ZERO_LENGTH, empty, np.empty(0), empty, np.empty(0, dtype=np.bool_),
+                (0.0, 0.0, 0.0, 0.0, raw_length, spacing))
+    sigma = sigma_in
+    if math.isnan(sigma):
+        w0 = _window_for(0.0, spacing, total)
+        step0 = min(max(min(w0 / 10.0, spacing / 2.0), 0.02), 0.5)
+        pts0, _ = _resample(xy, s_raw, step0)
+        sm0 = _smooth(pts0, max(int(round(w0 / step0)), 5), ORDER)
+        n_in_window = max(w0 / max(spacing, 1e-6), 5.0)
+        noise = _median_distance(xy, sm0) / 0.6745
+        sigma = noise / math.sqrt(max(1.0 - 4.0 / n_in_window, 0.2))
+    window = _window_for(sigma, spacing, total)
+    step = min(max(window / 12.0, 0.02), 0.5)
+    pts, s = _resample(xy, s_raw, step)
+    win_pts = max(int(round(window / step)), 5)
+    pos_pts = max(int(round(POSITION_WINDOW_SHARE * window / step)), 5)
+    sm = _smooth(pts, pos_pts, ORDER)
+    tangents = _unit_tangents(pts, win_pts, ORDER)
+    tangent_var = _tangent_variance(xy, s_raw, pts, s, sigma, win_pts, z)
+    # samples inside a bridged gap carry no observation, nor do samples within half a window
+    # of a gap: their local fits reach into the bridge
+    has_data = np.ones(len(s), dtype=np.bool_)
+    half = 0.5 * window
+    for i in range(n_raw - 1):
+        if gap_after[i]:
+            a = s_raw[i] - half
+            b = s_raw[i + 1] + half
+            for j in range(len(s)):
+                if s[j] > a and s[j] < b:
+                    has_data[j] = False
+    real_step = s[1] - s[0] if len(s) > 1 else step
+    return (CLEANED, sm, s, tangents, has_data,
+            (sigma, window, real_step, tangent_var, raw_length, spacing))
+
+
+@_compiled("float64(float64[:, ::1], float64)")
+def least_turn_cosine(xy, base_m):
+    """The smallest cosine of the turn between the chord arriving over ``base_m`` and the chord
+    leaving over ``base_m`` at any sample of ``xy`` (resampled every ``base_m / 8``), as
+    :func:`geoops.reversals.find_reversals` measures the turn; 2 when the line is too short
+    to measure."""
+    if xy.shape[0] < 3:
+        return 2.0
+    k = 8
+    pts, _ = _resample(xy, _arc_length(xy), base_m / k)
+    n = pts.shape[0]
+    if n < 2 * k + 1:
+        return 2.0
+    least = 1.0
+    for i in range(n - 2 * k):
+        ax = pts[i + k, 0] - pts[i, 0]
+        ay = pts[i + k, 1] - pts[i, 1]
+        lx = pts[i + 2 * k, 0] - pts[i + k, 0]
+        ly = pts[i + 2 * k, 1] - pts[i + k, 1]
+        dot = ax * lx + ay * ly
+        norm = max(math.sqrt((ax * ax + ay * ay) * (lx * lx + ly * ly)), 1e-12)
+        least = min(least, dot / norm)
+    return least
