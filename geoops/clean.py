@@ -18,8 +18,6 @@ from .curves import (
     Array,
     NearestOnPolyline,
     arc_length,
-    drop_repeats,
-    turning_angles,
     windowed_curvature,
 )
 from .errors import BadInput
@@ -174,9 +172,14 @@ def chain_parts(parts: list[Array]) -> tuple[Array, Array]:
     return np.concatenate(chain), np.concatenate(gap_after)
 
 
+#: vertices closer than this to the one before them are repeats, metres
+REPEAT_TOL_M = 1e-9
+
+
 def drop_spikes(xy: Array, passes: int = 2) -> Array:
     """Remove single-vertex spikes: a vertex where the line turns back sharply and turns
-    straight back again at a neighbour (a GNSS outlier), keeping real out-and-back turns.
+    straight back again at a neighbour (a GNSS outlier), keeping real out-and-back turns
+    (see :func:`geoops.kernels_clean.tidy_part`).
 
     Examples
     --------
@@ -184,23 +187,9 @@ def drop_spikes(xy: Array, passes: int = 2) -> Array:
     >>> drop_spikes(line)[:, 1].tolist()
     [0.0, 0.0, 0.0, 0.0, 0.0, 0.0]
     """
-    for _ in range(passes):
-        if len(xy) < 4:
-            return xy
-        turn = np.abs(turning_angles(xy))  # at vertices 1..n-2
-        sharp = turn > 2.5
-        prev_sharp = np.concatenate([[False], turn[:-1] > 1.2])
-        next_sharp = np.concatenate([turn[1:] > 1.2, [False]])
-        spike = sharp & (prev_sharp | next_sharp)
-        # of two neighbouring spikes drop only the sharper (both when equally sharp): the
-        # choice must not depend on the vertex order
-        beaten = np.concatenate([[False], spike[:-1] & (turn[:-1] > turn[1:] + 1e-9)])
-        spike &= ~(beaten | np.concatenate([spike[1:] & (turn[1:] > turn[:-1] + 1e-9), [False]]))
-        if not spike.any():
-            return xy
-        keep = np.concatenate([[True], ~spike, [True]])
-        xy = xy[keep]
-    return xy
+    return np.asarray(
+        kernels_clean.tidy_part(np.ascontiguousarray(xy, dtype=np.float64), -1.0, passes)
+    )
 
 
 #: seed of the white noise that :func:`clean_line` propagates to find the tangent variance:
@@ -220,7 +209,8 @@ def _standard_normals(rows: int) -> Array:
 
 
 def join_parts(parts: list[Array]) -> tuple[Array, Array]:
-    """Join a rut's parts into one line: drop repeats and spikes, chain the parts.
+    """Join a rut's parts into one line: drop repeats (see :func:`geoops.curves.drop_repeats`)
+    and spikes (:func:`drop_spikes`), chain the parts.
 
     Returns
     -------
@@ -232,7 +222,10 @@ def join_parts(parts: list[Array]) -> tuple[Array, Array]:
     BadInput
         When fewer than two distinct vertices remain.
     """
-    cleaned_parts = [drop_spikes(drop_repeats(np.asarray(p, dtype=np.float64))) for p in parts]
+    cleaned_parts = [
+        kernels_clean.tidy_part(np.ascontiguousarray(p, dtype=np.float64), REPEAT_TOL_M, 2)
+        for p in parts
+    ]
     xy, gap_after = chain_parts(cleaned_parts)
     if len(xy) < 2:
         raise BadInput("A rut has fewer than two distinct vertices.", "Remove or fix that line.")

@@ -58,9 +58,9 @@ def drop_repeats(xy: Array, tol: float = 1e-9) -> Array:
     """
     if len(xy) < 2:
         return xy
-    seg = np.hypot(*np.diff(xy, axis=0).T)
-    keep = np.concatenate([[True], seg > tol])
-    return xy[keep]
+    return np.asarray(
+        kernels_clean.tidy_part(np.ascontiguousarray(xy, dtype=np.float64), float(tol), 0)
+    )
 
 
 def resample(xy: Array, step: float) -> tuple[Array, Array]:

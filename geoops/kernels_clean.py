@@ -382,3 +382,63 @@ def least_turn_cosine(xy, base_m):
         norm = max(math.sqrt((ax * ax + ay * ay) * (lx * lx + ly * ly)), 1e-12)
         least = min(least, dot / norm)
     return least
+
+
+#: a vertex is a spike where the line turns back by more than SPIKE_TURN radians and a
+#: neighbour turns by more than SPIKE_NEIGHBOUR_TURN (a GNSS outlier out and straight back)
+SPIKE_TURN = 2.5
+SPIKE_NEIGHBOUR_TURN = 1.2
+
+
+@njit(nogil=True, inline="always")
+def _abs_turns(xy):
+    """Absolute heading change at each interior vertex, radians in [0, pi]."""
+    n = xy.shape[0]
+    turn = np.empty(n - 2)
+    before = math.atan2(xy[1, 1] - xy[0, 1], xy[1, 0] - xy[0, 0])
+    for i in range(1, n - 1):
+        after = math.atan2(xy[i + 1, 1] - xy[i, 1], xy[i + 1, 0] - xy[i, 0])
+        d = after - before
+        turn[i - 1] = abs(math.atan2(math.sin(d), math.cos(d)))
+        before = after
+    return turn
+
+
+@_compiled("float64[:, ::1](float64[:, ::1], float64, int64)")
+def tidy_part(xy, tol, passes):
+    """One part of a rut with repeated vertices dropped (each vertex within ``tol`` of the
+    vertex before it in the input; none when ``tol`` < 0), then ``passes`` rounds of spike
+    removal: a vertex where the line turns back sharply and a neighbour turns sharply too.
+    Of two neighbouring spikes only the sharper goes (both when equally sharp), so the
+    choice does not depend on the vertex order."""
+    n = xy.shape[0]
+    if tol >= 0 and n >= 2:
+        keep = np.ones(n, dtype=np.bool_)
+        for i in range(1, n):
+            keep[i] = math.hypot(xy[i, 0] - xy[i - 1, 0], xy[i, 1] - xy[i - 1, 1]) > tol
+        out = xy[keep]
+    else:
+        out = xy.copy()
+    for _ in range(passes):
+        n = out.shape[0]
+        if n < 4:
+            break
+        turn = _abs_turns(out)
+        m = n - 2
+        spike = np.zeros(m, dtype=np.bool_)
+        for i in range(m):
+            near = (i > 0 and turn[i - 1] > SPIKE_NEIGHBOUR_TURN) or (
+                i < m - 1 and turn[i + 1] > SPIKE_NEIGHBOUR_TURN)
+            spike[i] = turn[i] > SPIKE_TURN and near
+        keep = np.ones(n, dtype=np.bool_)
+        dropped = False
+        for i in range(m):
+            beaten = i > 0 and spike[i - 1] and turn[i - 1] > turn[i] + 1e-9
+            beaten = beaten or (i < m - 1 and spike[i + 1] and turn[i + 1] > turn[i] + 1e-9)
+            if spike[i] and not beaten:
+                keep[i + 1] = False
+                dropped = True
+        if not dropped:
+            break
+        out = out[keep]
+    return np.ascontiguousarray(out)

@@ -17,7 +17,7 @@ from . import kernels
 from .clean import CleanRut
 from .curves import box_neighbours, polyline_set
 from .inference import OFFTRACK_MAX_M, SHIFT_MAX_M, PairResult, solve_pair
-from .parallel import pool_map
+from .parallel import pool_map, thread_slices
 
 #: largest distance between a rear track and its front track, metres (off-tracking)
 NEIGHBOUR_DISTANCE_M = OFFTRACK_MAX_M
@@ -74,9 +74,10 @@ _GLANCE = 24
 _PROFILE_SAMPLES = 200
 
 
-def candidate_pairs(ruts: list[CleanRut]) -> list[Candidate]:
+def candidate_pairs(ruts: list[CleanRut], workers: int | None = None) -> list[Candidate]:
     """Pairs of ruts that run near each other (at least :data:`MIN_SHARED_FRACTION` of the
-    shorter within :data:`NEIGHBOUR_DISTANCE_M` of the other), with their spacing profile."""
+    shorter within :data:`NEIGHBOUR_DISTANCE_M` of the other), with their spacing profile
+    (measured in ``workers`` threads)."""
     if len(ruts) < 2:
         return []
     # boxes within reach first (exact line-to-line distances cost far more than the profile,
@@ -86,9 +87,12 @@ def candidate_pairs(ruts: list[CleanRut]) -> list[Candidate]:
     # compiled call; farther points need no exact distance
     lengths = np.array([r.length for r in ruts])
     shorter = lengths[i] <= lengths[j]
-    shared, near = kernels.spacing_profiles(
-        np.where(shorter, i, j), np.where(shorter, j, i), *polyline_set([r.index for r in ruts]),
-        _GLANCE, _PROFILE_SAMPLES, NEIGHBOUR_DISTANCE_M, NEAR_QUANTILE,
+    shared, near = thread_slices(
+        kernels.spacing_profiles,
+        (np.where(shorter, i, j), np.where(shorter, j, i)),
+        (*polyline_set([r.index for r in ruts]), _GLANCE, _PROFILE_SAMPLES,
+         NEIGHBOUR_DISTANCE_M, NEAR_QUANTILE),
+        workers,
     )
     return [
         Candidate(a, b, s, n)
@@ -118,7 +122,7 @@ def choose_pairs(
     its reversals); legs of one line are never paired with each other. ``workers`` > 1
     judges the candidates in that many forked processes (same result).
     """
-    cands = candidate_pairs(ruts)
+    cands = candidate_pairs(ruts, workers)
     if same_line is not None:
         cands = [c for c in cands if same_line[c.i] != same_line[c.j]]
     todo = [c for c in cands if c.may_be_front_rear(ruts)]

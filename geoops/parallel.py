@@ -1,11 +1,15 @@
 """Spreading one layer's per-rut and per-pair work over the machine's cores.
 
-The pipeline's two costly stages are independent item by item: cleaning each input rut, and
-judging each candidate pair. :func:`pool_map` runs such a stage in forked worker processes that
-inherit the stage's inputs (nothing large is pickled on the way in), in order, so a run with
-workers gives exactly the result of a run without. It falls back to a plain loop where forking
-is not possible or not worth it: one worker asked for, few items, no ``fork`` start method, or
-inside a daemonic process (Dask workers and the service's job processes cannot have children).
+Judging candidate pairs is independent pair by pair and mostly Python: :func:`pool_map` runs
+such a stage in forked worker processes that inherit the stage's inputs (nothing large is
+pickled on the way in), in order, so a run with workers gives exactly the result of a run
+without. It falls back to a plain loop where forking is not possible or not worth it: one
+worker asked for, few items, no ``fork`` start method, or inside a daemonic process (Dask
+workers and the service's job processes cannot have children).
+
+A compiled kernel that releases the GIL (``nogil=True``, see :mod:`geoops.kernels`) over an
+array of independent items runs in threads instead (:func:`thread_slices`): no fork, nothing
+pickled.
 """
 
 from __future__ import annotations
@@ -13,7 +17,10 @@ from __future__ import annotations
 import multiprocessing as mp
 import os
 from collections.abc import Callable, Sequence
+from concurrent.futures import ThreadPoolExecutor
 from typing import Any, TypeVar
+
+import numpy as np
 
 T = TypeVar("T")
 R = TypeVar("R")
@@ -67,3 +74,33 @@ def pool_map(
             return list(pool.imap(_call, [(fn, item) for item in items], chunksize=CHUNK))
     finally:
         _STATE = {}
+
+
+#: fewest items per thread for which threading a kernel pays for itself
+MIN_ITEMS_PER_THREAD = 256
+
+
+def thread_slices(
+    fn: Callable[..., tuple[np.ndarray, ...]],
+    split: Sequence[np.ndarray],
+    rest: tuple[Any, ...],
+    workers: int | None,
+) -> tuple[np.ndarray, ...]:
+    """``fn(*split, *rest)`` for a kernel that releases the GIL and maps equal-length item
+    arrays ``split`` to a tuple of per-item output arrays: the items are cut into one
+    contiguous slice per thread, and each output is the slices' outputs joined in order (the
+    same arrays as one call gives)."""
+    n = len(split[0]) if split else 0
+    k = 1 if workers is None else max(1, int(workers))
+    k = min(k, max(1, n // MIN_ITEMS_PER_THREAD))
+    if k <= 1:
+        return tuple(fn(*split, *rest))
+    cuts = np.linspace(0, n, k + 1).round().astype(np.int64)
+    with ThreadPoolExecutor(k) as pool:
+        parts = list(
+            pool.map(
+                lambda a_b: fn(*(np.ascontiguousarray(x[a_b[0] : a_b[1]]) for x in split), *rest),
+                zip(cuts[:-1].tolist(), cuts[1:].tolist(), strict=True),
+            )
+        )
+    return tuple(np.concatenate([p[c] for p in parts]) for c in range(len(parts[0])))

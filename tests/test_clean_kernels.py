@@ -135,3 +135,39 @@ def test_quick_turn_check_agrees_with_the_full_measurement(turn_deg: float) -> N
     least = kernels_clean.least_turn_cosine(xy, 0.6)
     assert np.degrees(np.arccos(least)) == pytest.approx(turn_deg, abs=0.5)
     assert bool(find_reversals(xy)) == (turn_deg > REVERSAL_TURN_DEG)
+
+
+def _spikes_reference(xy: np.ndarray, passes: int = 2) -> np.ndarray:
+    """Spike removal written with numpy (heading changes wrapped through complex numbers)."""
+    for _ in range(passes):
+        if len(xy) < 4:
+            return xy
+        d = np.diff(xy, axis=0)
+        turn = np.abs(np.angle(np.exp(1j * np.diff(np.arctan2(d[:, 1], d[:, 0])))))
+        sharp = turn > 2.5
+        spike = sharp & (np.r_[False, turn[:-1] > 1.2] | np.r_[turn[1:] > 1.2, False])
+        beaten = np.r_[False, spike[:-1] & (turn[:-1] > turn[1:] + 1e-9)]
+        ahead = np.r_[spike[1:] & (turn[1:] > turn[:-1] + 1e-9), False]
+        spike = spike & ~(beaten | ahead)
+        if not spike.any():
+            return xy
+        xy = xy[np.r_[True, ~spike, True]]
+    return xy
+
+
+@pytest.mark.parametrize("seed", range(8))
+def test_repeats_and_spikes_are_dropped_as_the_numpy_formulation_does(seed: int) -> None:
+    from geoops.clean import drop_spikes, join_parts
+
+    rng = np.random.default_rng(seed)
+    xy = _wavy(rng, 150, 0.6, 0.02)
+    at = rng.choice(np.arange(2, 148), 12, replace=False)
+    xy[at] += rng.normal(0.0, 3.0, (12, 2))  # outliers, some of them neighbours
+    xy = np.repeat(xy, rng.integers(1, 3, len(xy)), axis=0)  # repeated vertices
+    plain = xy[np.r_[True, np.hypot(*np.diff(xy, axis=0).T) > 1e-9]]
+    expected = _spikes_reference(plain)
+    assert len(expected) < len(plain)  # the case has spikes to drop
+    np.testing.assert_array_equal(drop_spikes(plain), expected)
+    joined, gaps = join_parts([xy])
+    np.testing.assert_array_equal(joined, expected)
+    assert not gaps.any()

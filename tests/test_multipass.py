@@ -139,6 +139,7 @@ def test_workers_give_the_same_result(tmp_path, monkeypatch):
     import geoops.parallel
 
     monkeypatch.setattr(geoops.parallel, "MIN_ITEMS_PER_WORKER", 4)
+    monkeypatch.setattr(geoops.parallel, "MIN_ITEMS_PER_THREAD", 4)
     scene = make_scene(23, 10, origin=ORIGIN)
     src = str(tmp_path / "scene.gpkg")
     write_scene(scene, src, CRS)
@@ -226,10 +227,12 @@ def test_only_pairs_that_come_together_reach_the_solver():
 
 
 
-def test_spacing_profiles_match_a_direct_measurement():
+def test_spacing_profiles_match_a_direct_measurement(monkeypatch):
     """The compiled spacing profile of candidate pairs against shapely distances and numpy's
-    percentile, measured from the shorter rut of each pair."""
+    percentile, measured from the shorter rut of each pair; the same in threads."""
     import shapely
+
+    import geoops.parallel
 
     from geoops.clean import clean_rut
     from geoops.pairing import NEAR_QUANTILE, NEIGHBOUR_DISTANCE_M, candidate_pairs
@@ -238,6 +241,8 @@ def test_spacing_profiles_match_a_direct_measurement():
     ruts = [clean_rut([line.xy]) for line in scene.lines]
     cands = candidate_pairs(ruts)
     assert len(cands) >= 5
+    monkeypatch.setattr(geoops.parallel, "MIN_ITEMS_PER_THREAD", 2)
+    assert candidate_pairs(ruts, workers=3) == cands
     for c in cands:
         a, b = sorted((ruts[c.i], ruts[c.j]), key=lambda r: r.length)
         pts = a.xy[:: max(len(a.xy) // 200, 1)]
