@@ -25,19 +25,21 @@ MIN_TURN_RAD = 0.1
 MAX_RADIUS_IN_WHEELBASES = 3.0
 
 
-def _windowed_curvature(track: CleanRut) -> tuple[np.ndarray, np.ndarray, int]:
-    kappa, centres, _ = track.curvature()
-    return kappa, centres, max(track.window_pts // 2, 1)
+Curvature = tuple[np.ndarray, np.ndarray, float]
 
 
 def steady_turn_wheelbase(
-    rear: CleanRut, front: CleanRut, wheelbase_hint: float | None = None
+    rear: CleanRut,
+    front: CleanRut,
+    wheelbase_hint: float | None = None,
+    rear_curvature: Curvature | None = None,
 ) -> float | None:
     """Median wheelbase from R_front^2 = R_rear^2 + L^2 over the rear's steady-turn stretches.
 
     Returns None when the rear track has no steady turn sharp enough to read: tighter than
     :data:`MAX_RADIUS_IN_WHEELBASES` times ``wheelbase_hint`` (the other estimate, used only
     to judge whether the turn is tight enough), or than that many times its own estimate.
+    ``rear_curvature``: ``rear.curvature()`` when the caller has it already.
 
     Examples
     --------
@@ -51,24 +53,26 @@ def steady_turn_wheelbase(
     >>> round(steady_turn_wheelbase(rear, front), 2)
     2.5
     """
-    k_r, c_r, half = _windowed_curvature(rear)
-    k_f, c_f, _ = _windowed_curvature(front)
-    if len(k_r) < 3 or len(k_f) < 3:
-        return None
+    k_r, c_r, _ = rear.curvature() if rear_curvature is None else rear_curvature
+    half = max(rear.window_pts // 2, 1)
     base = 2 * half * rear.step
     # steady: the curvature one window ahead and one behind agree with the centre's
-    ahead = np.roll(k_r, -2 * half)
-    behind = np.roll(k_r, 2 * half)
-    valid = np.zeros(len(k_r), dtype=bool)
-    valid[2 * half : len(k_r) - 2 * half] = True
-    steady = (
-        valid
-        & (np.abs(k_r) * base > MIN_TURN_RAD)
-        & (np.abs(ahead - k_r) <= STEADY_SPREAD * np.abs(k_r))
-        & (np.abs(behind - k_r) <= STEADY_SPREAD * np.abs(k_r))
-        & rear.has_data[c_r]
+    lo, hi = 2 * half, len(k_r) - 2 * half
+    if hi - lo < 3:
+        return None
+    mid = k_r[lo:hi]
+    spread = STEADY_SPREAD * np.abs(mid)
+    steady = lo + np.flatnonzero(
+        (np.abs(mid) * base > MIN_TURN_RAD)
+        & (np.abs(k_r[lo + 2 * half :] - mid) <= spread)
+        & (np.abs(k_r[: hi - 2 * half] - mid) <= spread)
+        & rear.has_data[c_r[lo:hi]]
     )
-    if steady.sum() < 3:
+    if len(steady) < 3:
+        return None
+    # the front's curvature only now: most tracks have no steady turn
+    k_f, c_f, _ = front.curvature()
+    if len(k_f) < 3:
         return None
     # the front's curvature where it runs beside those rear points
     _, s_front, _ = front.index.query(rear.xy[c_r[steady]])

@@ -24,7 +24,7 @@ from . import __version__
 from .axles import TRACK_MAX_M, Side, choose_axles, join_cost, spacing
 from .chaining import chain_features
 from .clean import CleanRut, clean_line, clean_rut, join_parts
-from .crosscheck import steady_turn_wheelbase
+from .crosscheck import Curvature, steady_turn_wheelbase
 from .curves import Array, as_linestrings, box_neighbours
 from .errors import BadInput, CrsError
 from .frame import LocalFrame, build_frame, resolve_crs
@@ -154,14 +154,17 @@ class AnalysisResult:
     warnings: list[str]
 
 
-def _rear_attributes(rut: CleanRut, wheelbase: float | None) -> tuple[float | None, float | None]:
-    """Minimum turning radius of the rear path and the largest steering angle it implies.
+def _rear_attributes(
+    rut: CleanRut, wheelbase: float | None, curvature: Curvature
+) -> tuple[float | None, float | None]:
+    """Minimum turning radius of the rear path and the largest steering angle it implies;
+    ``curvature`` is ``rut.curvature()``.
 
     Curvature is the heading change across one smoothing window (not between neighbouring
     samples, which only measures noise); its noise follows from the tangent variance. A path
     whose curvature never rises clearly above that noise has no minimum radius (null).
     """
-    kappa, centres, noise = rut.curvature()
+    kappa, centres, noise = curvature
     kappa = np.abs(kappa[rut.has_data[centres]])
     if len(kappa) < 5:
         return None, None
@@ -178,7 +181,8 @@ def _make_pass(pass_id: int, lp: LegPass, legs: list[Leg], ids: list[str]) -> Pa
     res = lp.result
     rear = legs[lp.rear_leg].track
     geom = rear.xy if lp.motion_follows_rear in (None, True) else rear.xy[::-1]
-    radius, steer = _rear_attributes(rear, res.wheelbase)
+    curvature = rear.curvature()
+    radius, steer = _rear_attributes(rear, res.wheelbase, curvature)
     tol = max(rear.sigma, 0.005)
     simple = shapely.get_coordinates(shapely.simplify(shapely.LineString(geom), tol * 0.5))
     ruts = sorted({legs[lp.rear_leg].rut, legs[lp.front_leg].rut})
@@ -202,7 +206,9 @@ def _make_pass(pass_id: int, lp: LegPass, legs: list[Leg], ids: list[str]) -> Pa
         source_fids=",".join(ids[k] for k in ruts),
         geometry=simple,
         leg=lp.order + 1,
-        wheelbase_turn_m=steady_turn_wheelbase(rear, legs[lp.front_leg].track, res.wheelbase),
+        wheelbase_turn_m=steady_turn_wheelbase(
+            rear, legs[lp.front_leg].track, res.wheelbase, curvature
+        ),
     )
 
 
@@ -328,7 +334,8 @@ def _make_axle_pass(
     """One `passes` record for a four-wheeled vehicle seen as two side pairs, and the labels
     of its four ruts. Geometry: the rear-axle midpoint path (midway between the rear tracks)."""
     rear_a, rear_b = legs[a.rear_leg].track, legs[b.rear_leg].track
-    sp = spacing(rear_a, rear_b)
+    d, s, _, foot = rear_b.index.nearest(rear_a.xy)
+    sp = spacing(rear_a, rear_b, (d, s))
     lo = _side_log_odds(a) + _side_log_odds(b) * (1 if sp.same_order else -1)
     lo = float(np.clip(lo, -MAX_LOG_ODDS, MAX_LOG_ODDS))
     p = 1.0 / (1.0 + np.exp(-lo))
@@ -338,7 +345,6 @@ def _make_axle_pass(
     ea, eb = _side_evidence(a), _side_evidence(b) * (1 if sp.same_order else -1)
     mixed = ea * eb < 0 and min(abs(ea), abs(eb)) >= SIDE_CONFLICT_LOG_ODDS
     follows_a = (lo > 0) if decided and not mixed else None
-    d, s, _, foot = rear_b.index.nearest(rear_a.xy)
     inside = (s > 2 * rear_b.step) & (s < rear_b.length - 2 * rear_b.step)
     mid = 0.5 * (rear_a.xy[inside] + foot[inside])
     geom = mid if follows_a in (None, True) else mid[::-1]
@@ -351,7 +357,8 @@ def _make_axle_pass(
         verdict = "ambiguous"
     else:
         verdict = "undetermined"
-    radius, steer = _rear_attributes(rear_a, wb)
+    curvature = rear_a.curvature()
+    radius, steer = _rear_attributes(rear_a, wb, curvature)
     simple = shapely.get_coordinates(
         shapely.simplify(shapely.LineString(geom), 0.5 * max(rear_a.sigma, 0.005))
     )
@@ -395,7 +402,7 @@ def _make_axle_pass(
         rut_ids=",".join(str(k + 1) for k in ruts),
         source_fids=",".join(ids[k] for k in ruts),
         geometry=simple,
-        wheelbase_turn_m=steady_turn_wheelbase(rear_a, legs[a.front_leg].track, wb),
+        wheelbase_turn_m=steady_turn_wheelbase(rear_a, legs[a.front_leg].track, wb, curvature),
     )
     return record, labels
 
