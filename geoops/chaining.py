@@ -24,7 +24,7 @@ import numpy as np
 import shapely
 from scipy.spatial import cKDTree
 
-from .curves import Array, arc_length, as_linestrings
+from .curves import Array, as_linestrings
 
 #: longest gap bridged between two features' ends, metres  # common practice: ruts fade over
 #: a few metres of hard ground or a stony crossing
@@ -62,32 +62,60 @@ WITNESS_M = 2.5
 WITNESS_STEP_M = 0.25
 
 
-def _end(xy: Array, s: Array, at_start: bool) -> tuple[Array, Array, Array]:
-    """An end point, the unit heading leaving the line there (a least-squares line through
-    the vertices within END_FIT_M of that end), and the innermost of those vertices; ``s``
-    is the line's arc length."""
-    total = float(s[-1])
-    reach = min(END_FIT_M, max(total / 3.0, 1e-9))
-    pts = xy[s <= reach] if at_start else xy[s >= total - reach]
-    if len(pts) < 2:
-        pts = xy[:2] if at_start else xy[-2:]
-    centred = pts - pts.mean(axis=0)
-    _, _, vt = np.linalg.svd(centred, full_matrices=False)
-    direction = vt[0]
+def _line_ends(lines: list[Array | None]) -> tuple[np.ndarray, ...]:
+    """Both ends of every line of three or more vertices and at least MIN_PIECE_M, all lines
+    at once: per end (a line's start, then its end) the owning line, whether the line is too
+    short for a heading of its own, the end point, the unit heading leaving the line there
+    (the principal axis of the vertices within END_FIT_M of that end, a third of the line at
+    most, two vertices at least: a least-squares line) and the innermost of those vertices."""
+    keep = [k for k, xy in enumerate(lines) if xy is not None and len(xy) >= 3]
+    kept = [xy for xy in lines if xy is not None and len(xy) >= 3]
+    if not kept:
+        empty = np.empty((0, 2))
+        return np.empty(0, dtype=np.int64), np.empty(0, dtype=bool), empty, empty, empty
+    counts = np.array([len(xy) for xy in kept])
+    first = np.concatenate([[0], np.cumsum(counts)[:-1]])
+    last = first + counts - 1
+    flat = np.concatenate(kept).astype(np.float64)
+    seg = np.hypot(*np.diff(flat, axis=0).T)
+    s = np.zeros(len(flat))  # arc length along each line
+    for a, b in zip(first.tolist(), last.tolist(), strict=True):
+        np.cumsum(seg[a:b], out=s[a + 1 : b + 1])
+    total = s[last]
+    reach = np.minimum(END_FIT_M, np.maximum(total / 3.0, 1e-9))
+    line_of = np.repeat(np.arange(len(keep)), counts)
+    # vertices within reach of each end: a run from that end (arc length only grows)
+    m_start = np.maximum(np.add.reduceat(s <= reach[line_of], first), 2)
+    m_end = np.maximum(np.add.reduceat(s >= (total - reach)[line_of], first), 2)
+    used = np.flatnonzero(total >= MIN_PIECE_M)  # shorter: too little to say where it leads
+    lo = np.column_stack([first[used], last[used] - m_end[used] + 1]).ravel()
+    size = np.column_stack([m_start[used], m_end[used]]).ravel()
+    point = flat[np.column_stack([first[used], last[used]]).ravel()]
+    inner = flat[np.column_stack([first[used] + m_start[used] - 1, lo[1::2]]).ravel()]
+    # principal axis of each end's vertices, from their scatter about their mean
+    offset = np.cumsum(size) - size
+    pts = flat[np.repeat(lo - offset, size) + np.arange(int(size.sum()))]
+    centred = pts - np.repeat(np.add.reduceat(pts, offset) / size[:, None], size, axis=0)
+    sxx, syy, sxy = (np.add.reduceat(v, offset) for v in (
+        centred[:, 0] ** 2, centred[:, 1] ** 2, centred[:, 0] * centred[:, 1]))
+    angle = 0.5 * np.arctan2(2.0 * sxy, sxx - syy)
+    heading = np.column_stack([np.cos(angle), np.sin(angle)])
     # leaving the line: from the inner vertices towards the end
-    outward = (xy[0] - xy[min(len(xy) - 1, len(pts) - 1)]) if at_start else (
-        xy[-1] - xy[max(0, len(xy) - len(pts))]
-    )
-    if float(np.dot(direction, outward)) < 0:
-        direction = -direction
-    return (xy[0] if at_start else xy[-1]), direction, pts[-1] if at_start else pts[0]
+    outward = point - inner
+    heading[heading[:, 0] * outward[:, 0] + heading[:, 1] * outward[:, 1] < 0] *= -1.0
+    owner = np.repeat(np.asarray(keep)[used], 2)
+    short = np.repeat(total[used] < SHORT_PIECE_M, 2)
+    return owner, short, point, heading, inner
 
 
-def _beyond(p: Array, hp: Array, q: Array, inner_q: Array) -> bool:
-    """Whether the piece ending at q runs on beyond p along p's outward heading (end to end:
-    its vertices a few metres in from q lie farther along), rather than back alongside p's
-    own line (a front track sticking out ahead of its rear track at a pass's start)."""
-    return float(np.dot(inner_q - p, hp)) > float(np.dot(q - p, hp)) + BEYOND_M
+def _beyond(p: Array, hp: Array, q: Array, inner_q: Array) -> np.ndarray:
+    """Per row, whether the piece ending at q runs on beyond p along p's outward heading (end
+    to end: its vertices a few metres in from q lie farther along), rather than back
+    alongside p's own line (a front track sticking out ahead of its rear track at a pass's
+    start)."""
+    ahead_inner = (inner_q[:, 0] - p[:, 0]) * hp[:, 0] + (inner_q[:, 1] - p[:, 1]) * hp[:, 1]
+    ahead_end = (q[:, 0] - p[:, 0]) * hp[:, 0] + (q[:, 1] - p[:, 1]) * hp[:, 1]
+    return np.asarray(ahead_inner > ahead_end + BEYOND_M)
 
 
 def _cost(
@@ -135,35 +163,19 @@ def chain_features(lines: list[Array | None]) -> list[list[int]]:
     >>> chain_features([a, b])  # nothing runs past the gap: may be two things end to end
     []
     """
-    ends, heads, inner, owner, short = [], [], [], [], []
-    for k, xy in enumerate(lines):
-        if xy is None or len(xy) < 3:
-            continue
-        s = arc_length(xy)
-        if s[-1] < MIN_PIECE_M:
-            continue  # too little of a line to say where it leads
-        for at_start in (True, False):
-            p, h, i = _end(xy, s, at_start)
-            ends.append(p)
-            heads.append(h)
-            inner.append(i)
-            owner.append(k)
-            short.append(bool(s[-1] < SHORT_PIECE_M))
-    if len(ends) < 4:
+    owner, short, pts, heads, inner = _line_ends(lines)
+    if len(pts) < 4:
         return []
-    pts = np.asarray(ends)
-    tree = cKDTree(pts)
+    pairs = cKDTree(pts).query_pairs(MAX_GAP_M, output_type="ndarray")
+    # a short piece's heading does not count: it is the far end (q) of its pairs
+    p = np.where(short[pairs[:, 0]], pairs[:, 1], pairs[:, 0])
+    q = np.where(short[pairs[:, 0]], pairs[:, 0], pairs[:, 1])
+    ok = (owner[p] != owner[q]) & ~(short[p] & short[q])
+    ok &= _beyond(pts[p], heads[p], pts[q], inner[q])
+    ok &= short[q] | _beyond(pts[q], heads[q], pts[p], inner[p])
     best: dict[int, list[tuple[float, int]]] = {}
-    for a, b in tree.query_pairs(MAX_GAP_M, output_type="ndarray").tolist():
-        if owner[a] == owner[b] or (short[a] and short[b]):
-            continue
-        if short[a]:
-            a, b = b, a
-        if not _beyond(pts[a], heads[a], pts[b], inner[b]) or (
-            not short[b] and not _beyond(pts[b], heads[b], pts[a], inner[a])
-        ):
-            continue
-        cost = _cost(pts[a], heads[a], pts[b], heads[b], short[b])
+    for a, b in zip(p[ok].tolist(), q[ok].tolist(), strict=True):
+        cost = _cost(pts[a], heads[a], pts[b], heads[b], bool(short[b]))
         if cost is not None:
             best.setdefault(a, []).append((cost, b))
             best.setdefault(b, []).append((cost, a))
@@ -173,6 +185,10 @@ def chain_features(lines: list[Array | None]) -> list[list[int]]:
         if len(options) > 1 and options[1][0] - options[0][0] < AMBIGUITY_MARGIN_M:
             continue
         choice[a] = options[0][1]
+    facing = [(a, b) for a, b in choice.items() if a < b and choice.get(b) == a]
+    if not facing:
+        return []
+    ends_of = owner.tolist()
     parent = list(range(len(lines)))
 
     def find(k: int) -> int:
@@ -189,16 +205,16 @@ def chain_features(lines: list[Array | None]) -> list[list[int]]:
         ends = shapely.points(pts[[a, b]])
         near = [set(line_tree.query(e, "dwithin", WITNESS_M).tolist()) for e in ends]
         for i in near[0] & near[1]:
-            if usable[i] in (owner[a], owner[b]):
+            if usable[i] in (ends_of[a], ends_of[b]):
                 continue
             d = shapely.distance(geoms[i], ends)
             if abs(float(d[0] - d[1])) <= WITNESS_STEP_M:
                 return True
         return False
 
-    for a, b in choice.items():
-        if a < b and choice.get(b) == a and witnessed(a, b):
-            ra, rb = find(owner[a]), find(owner[b])
+    for a, b in facing:
+        if witnessed(a, b):
+            ra, rb = find(ends_of[a]), find(ends_of[b])
             if ra != rb:  # no rings
                 parent[max(ra, rb)] = min(ra, rb)
     groups: dict[int, list[int]] = {}

@@ -41,3 +41,24 @@ def test_pieces_that_turn_away_are_not_chained():
     b = np.column_stack([34 + 10 * np.sin(t), 10 - 10 * np.cos(t) + 8.0])  # off to the side
     partner = _line(-2, 60, 0.5)
     assert chain_features([a, b, partner]) == []
+
+
+def test_end_headings_are_the_least_squares_lines_of_the_end_vertices():
+    # source: numpy 2.x linalg.svd: the first right singular vector of the centred vertices
+    # is the direction of their least-squares (orthogonal) line
+    from geoops.chaining import END_FIT_M, _line_ends
+
+    rng = np.random.default_rng(3)
+    lines = [np.cumsum(rng.normal(0.0, 0.4, (int(rng.integers(3, 60)), 2)), axis=0) + 5e5
+             for _ in range(200)]
+    owner, _, point, heading, inner = _line_ends(lines)
+    assert len(owner) > 100
+    for k, (line, end, h, i) in enumerate(zip(owner, point, heading, inner, strict=True)):
+        xy = lines[line] if k % 2 == 0 else lines[line][::-1]
+        s = np.concatenate([[0.0], np.cumsum(np.hypot(*np.diff(xy, axis=0).T))])
+        near = xy[s <= min(END_FIT_M, s[-1] / 3.0)]
+        near = near if len(near) >= 2 else xy[:2]
+        axis = np.linalg.svd(near - near.mean(axis=0))[2][0]
+        axis = axis if np.dot(axis, xy[0] - near[-1]) >= 0 else -axis
+        assert np.array_equal(end, xy[0]) and np.array_equal(i, near[-1])
+        assert np.allclose(h, axis, atol=1e-9)
