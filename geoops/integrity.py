@@ -99,6 +99,30 @@ def _plain(value: Any) -> float | str | None:
     return str(value)
 
 
+#: value types whose canonical form is a float (bool is an int but hashes as text)
+_NUMBER_TYPES = (int, float, np.integer, np.floating)
+
+
+def _plain_column(values: Sequence[Any]) -> list[float | str | None]:
+    """:func:`_plain` of every value of a column; numbers, text and nulls without a call per
+    value (a result's layers hold tens of thousands of values).
+
+    >>> _plain_column([1, -0.0, None, float("nan"), np.float32(0.5)])
+    [1.0, 0.0, None, None, 0.5]
+    >>> _plain_column(["a", None]), _plain_column([True, 2])
+    (['a', None], ['True', 2.0])
+    """
+    kinds = {type(v) for v in values}
+    kinds.discard(type(None))
+    if all(issubclass(k, _NUMBER_TYPES) and not issubclass(k, bool | np.bool_) for k in kinds):
+        # None -> NaN -> None; ints and numpy numbers exactly as float() converts them
+        numbers = (np.array(values, dtype=np.float64) + 0.0).tolist()  # + 0.0: -0.0 -> 0.0
+        return [None if x != x else x for x in numbers]
+    if kinds <= {str}:
+        return list(values)
+    return [_plain(v) for v in values]
+
+
 def layer_sha256(names: Sequence[str], columns: Sequence[Sequence[Any]],
                  geometries: np.ndarray) -> str:
     """The content checksum of one feature layer.
@@ -119,8 +143,9 @@ def layer_sha256(names: Sequence[str], columns: Sequence[Sequence[Any]],
     False
     """
     geoms = np.asarray(geometries, dtype=object)
-    rows = ([{n: _plain(v) for n, v in zip(names, row, strict=True)}
-             for row in zip(*columns, strict=True)] if columns else [{} for _ in geoms])
+    plain = [_plain_column(c) for c in columns]
+    rows = ([dict(zip(names, row, strict=True)) for row in zip(*plain, strict=True)]
+            if columns else [{} for _ in geoms])
     if len(rows) != len(geoms):
         raise ValueError(f"{len(rows)} attribute rows but {len(geoms)} geometries")
     counts = shapely.get_num_coordinates(geoms).astype("<i8")

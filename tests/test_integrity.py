@@ -120,3 +120,18 @@ def test_a_folder_checksum_lists_its_files(tmp_path: Path) -> None:
     # source: the line format of GNU coreutils sha256sum
     assert file_sha256(tmp_path) == hashlib.sha256(listing.encode()).hexdigest()
     assert file_sha256(tmp_path / "missing") == ""
+
+
+@pytest.mark.parametrize("column", [
+    [1, 2.5, None, float("nan"), -0.0, np.float32(1.1), np.int64(7), float("inf"), 2**70],
+    [None, None], ["a", None, "b,\"c\""], [True, 2, np.bool_(False)], [1, "a", None], [],
+    [np.uint64(2**64 - 1), np.float32("nan"), np.longdouble("0.1")],
+])
+def test_whole_columns_take_the_canonical_form_of_each_value(column: list[object]) -> None:
+    """The checksum's definition is per value (``_plain``); columns are converted at once."""
+    from geoops.integrity import _plain, _plain_column
+
+    expected = [_plain(v) for v in column]
+    got = _plain_column(column)
+    assert [type(v) for v in got] == [type(v) for v in expected]
+    assert got == expected
