@@ -7,12 +7,16 @@ OUT    ?= out
 
 .PHONY: run test lint serve bench clean samples
 
-$(STAMP): pyproject.toml
+KERNELS := geoops/kernel_loader.py geoops/kernels.py geoops/kernels_clean.py
+
+$(STAMP): pyproject.toml $(KERNELS)
 	test -x $(BIN)/python || $(PYTHON) -m venv $(VENV)
 	$(BIN)/python -m pip install --quiet --upgrade pip
 	$(BIN)/python -m pip install --quiet -e ".[service,dev]"
-	@# compile the solver's numba kernels once (cached on disk; otherwise the first run pays)
-	$(BIN)/python -c "import geoops.kernels, geoops.kernels_clean"
+	@# the numba kernels: built ahead of time into an extension module (start-up without
+	@# numba), and compiled once into numba's cache for the fallback (see geoops/kernel_loader.py)
+	$(BIN)/python -m geoops.kernel_build
+	RUTWISE_KERNELS=jit $(BIN)/python -c "import geoops.kernels, geoops.kernels_clean"
 	touch $(STAMP)
 
 ## make run: analyse the bundled sample layers and print a summary

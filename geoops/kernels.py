@@ -1,4 +1,4 @@
-"""Compiled geometry kernels for the solver's hot path (numba, compiled ahead of first use).
+"""Compiled geometry kernels for the solver's hot path (numba).
 
 The pair solver asks, tens of millions of times per large layer, for the point of a densely
 sampled polyline nearest to a predicted front-axle position. A k-d tree answers with the
@@ -13,40 +13,22 @@ any segment lies within half the segment's length of one of its two end vertices
 can be closer. ``tests/test_curves.py`` checks the result against GEOS (shapely) distances and
 positions, on lines that loop and cross themselves.
 
-The functions are compiled with explicit signatures when this module is imported and cached on
-disk (``cache=True``), so a process pays the compilation once per installation or change of
-this file (10-15 s here) and then only loads them (about 0.3 s, with numba's own import);
-forked workers inherit them compiled.
+How the kernels become machine code (built ahead of time at set-up, or by numba at import)
+is :mod:`geoops.kernel_loader`'s business; forked workers inherit them either way.
 """
 
 from __future__ import annotations
 
-from collections.abc import Callable
-from typing import Any
-
 import numpy as np
-from numba import njit
 
-
-def _compiled(signature: str) -> Callable[[Callable[..., Any]], Any]:
-    """Compile now for ``signature``, cached on disk where numba finds a writable place
-    (``NUMBA_CACHE_DIR``, next to this file, or the user's cache); in memory otherwise."""
-
-    def deco(fn: Callable[..., Any]) -> Any:
-        try:
-            return njit(signature, cache=True, nogil=True)(fn)
-        except RuntimeError:  # no writable cache location
-            return njit(signature, nogil=True)(fn)
-
-    return deco
-
+from .kernel_loader import compiled, inline
 
 #: largest number of grid cells per vertex of the line (bounds the grid's memory on long,
 #: winding lines: the cell grows instead)
 CELLS_PER_VERTEX = 16
 
 
-@_compiled("Tuple((int64, int64, int64[::1], int64[::1]))(float64[::1], float64[::1], "
+@compiled("Tuple((int64, int64, int64[::1], int64[::1]))(float64[::1], float64[::1], "
            "float64, float64, float64)")
 def build_grid(x, y, x0, y0, cell):
     """Bucket the vertices: grid size (nx, ny), CSR ``start`` offsets per cell and the vertex
@@ -83,7 +65,7 @@ FINE_RINGS = 2
 COARSE = 8
 
 
-@njit(nogil=True, inline="always")
+@inline
 def _search(px, py, x, y, abx, aby, inv_den, x0, y0, size, half_longest, gnx, gny, st, it,
             most_rings, limit, best, best_seg, best_t):  # noqa: E501
     """Scan rings of one grid's cells around ``(px, py)``, each vertex bucketed there
@@ -147,7 +129,7 @@ def _search(px, py, x, y, abx, aby, inv_den, x0, y0, size, half_longest, gnx, gn
     return best, best_seg, best_t, False
 
 
-@njit(nogil=True, inline="always")
+@inline
 def _nearest(px, py, x, y, abx, aby, inv_den, x0, y0, cell, half_longest, nx, ny, start, items,
              nx2, ny2, start2, items2, limit):  # noqa: E501
     """Squared distance, segment and fraction along it of the point of the polyline nearest to
@@ -170,7 +152,7 @@ _GEO = "UniTuple(float64, 4)"
 _GRID = "Tuple((int64, int64, int64[::1], int64[::1], int64, int64, int64[::1], int64[::1]))"
 
 
-@_compiled(f"Tuple((float64[::1], int64[::1], float64[::1]))(float64[:, ::1], {_POLY}, {_GEO}, "
+@compiled(f"Tuple((float64[::1], int64[::1], float64[::1]))(float64[:, ::1], {_POLY}, {_GEO}, "
            f"{_GRID}, float64)")
 def closest(pts, poly, geo, grid, limit):
     """Per query point: squared distance to the polyline, the segment holding the nearest
@@ -206,7 +188,7 @@ PLAIN, NEWTON, PROFILED = 0, 1, 2
 USED, SUM_SQ, GE, GG, HE, GH, HH, SHIFT = range(8)
 
 
-@_compiled(f"float64[:, ::1](float64[:, ::1], float64[:, ::1], float64[:, ::1], float64, "
+@compiled(f"float64[:, ::1](float64[:, ::1], float64[:, ::1], float64[:, ::1], float64, "
            f"float64[::1], int64, {_POLY}, {_GEO}, {_GRID}, boolean[::1], float64, float64, "
            f"float64, float64)")
 def misfit_sums(base, u, nrm, shift, lengths, mode, poly, geo, grid, usable, step, edge, cap2,
@@ -289,7 +271,7 @@ NEWTON_STEPS = 6
 NEWTON_TOL = 1e-4
 
 
-@_compiled(f"UniTuple(float64, 4)(float64[:, ::1], float64[:, ::1], float64[:, ::1], float64, "
+@compiled(f"UniTuple(float64, 4)(float64[:, ::1], float64[:, ::1], float64[:, ::1], float64, "
            f"float64, float64, float64, boolean, {_POLY}, {_GEO}, {_GRID}, boolean[::1], "
            f"float64, float64, float64, float64, float64, int64)")
 def newton_fit(base, u, nrm, shift0, start, lo, hi, free_shift, poly, geo, grid, usable, step,
@@ -362,7 +344,7 @@ _SET = ("UniTuple(int64[::1], 2), UniTuple(float64[::1], 5), float64[:, ::1], "
         "UniTuple(int64[::1], 10)")
 
 
-@_compiled(f"UniTuple(float64[::1], 2)(int64[::1], int64[::1], {_SET}, int64, int64, float64, "
+@compiled(f"UniTuple(float64[::1], 2)(int64[::1], int64[::1], {_SET}, int64, int64, float64, "
            f"float64)")
 def spacing_profiles(first, second, offsets, arrays, geos, grids, glance, samples, reach, q):
     """For each pair ``(first[k], second[k])`` of lines of a set: the share of the first's

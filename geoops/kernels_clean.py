@@ -9,10 +9,11 @@ remain for everything else, and the tests check both give the same numbers
 (``tests/test_clean_kernels.py``).
 
 The cleaning constants live here rather than in :mod:`geoops.clean` (which re-exports them):
-numba bakes a module's globals into the compiled code and its on-disk cache is keyed on this
-file alone, so a constant changed elsewhere would silently keep its old value.
+numba bakes a module's globals into the compiled code, and both its on-disk cache and the
+ahead-of-time build are keyed on the kernel files alone, so a constant changed elsewhere would
+silently keep its old value.
 
-Compiled and cached like :mod:`geoops.kernels` (explicit signatures, ``cache=True``).
+Compiled like :mod:`geoops.kernels` (see :mod:`geoops.kernel_loader`).
 """
 
 from __future__ import annotations
@@ -20,15 +21,14 @@ from __future__ import annotations
 import math
 
 import numpy as np
-from numba import njit
 
+from .kernel_loader import compiled, inline
 from .kernels import (
     _GEO,
     _GRID,
     _POLY,
     CELLS_PER_VERTEX,
     COARSE,
-    _compiled,
     _nearest,
     build_grid,
 )
@@ -46,7 +46,7 @@ ORDER = 3
 CLEANED, ZERO_LENGTH = 0, 1
 
 
-@njit(nogil=True, inline="always")
+@inline
 def _arc_length(xy):
     n = xy.shape[0]
     s = np.empty(n)
@@ -58,7 +58,7 @@ def _arc_length(xy):
     return s
 
 
-@njit(nogil=True, inline="always")
+@inline
 def _resample(xy, s_raw, step):
     """:func:`geoops.curves.resample` of ``xy`` (arc length ``s_raw``): points and positions."""
     total = s_raw[-1]
@@ -74,7 +74,7 @@ def _resample(xy, s_raw, step):
     return pts, s
 
 
-@njit(nogil=True, inline="always")
+@inline
 def _odd_window(points, n, order):
     """:func:`geoops.curves._odd_window`: the window made odd, within the line, above the order."""
     w = min(points, n if n % 2 == 1 else n - 1)
@@ -83,7 +83,7 @@ def _odd_window(points, n, order):
     return max(w, low)
 
 
-@_compiled("float64[:, ::1](int64, int64, int64)")
+@compiled("float64[:, ::1](int64, int64, int64)")
 def savgol_matrix(window, order, deriv):
     """The ``(w, w)`` matrix mapping one window's values to the fitted polynomial's values (or
     ``deriv``-th derivative per sample) at each of its samples: row ``w // 2`` is the centre
@@ -112,7 +112,7 @@ def savgol_matrix(window, order, deriv):
     return np.ascontiguousarray(deriv_vander @ pinv)
 
 
-@njit(nogil=True, inline="always")
+@inline
 def _savgol(y, window, order, deriv):
     """:func:`geoops.curves.savgol` of the columns of ``y`` ("interp" ends)."""
     n = y.shape[0]
@@ -138,14 +138,14 @@ def _savgol(y, window, order, deriv):
     return out
 
 
-@_compiled("float64[:, ::1](float64[:, ::1], int64, int64, int64)")
+@compiled("float64[:, ::1](float64[:, ::1], int64, int64, int64)")
 def savgol(y, window, order, deriv):
     """Savitzky-Golay filter along axis 0 (see :func:`geoops.curves.savgol`, which checks the
     arguments and calls this)."""
     return _savgol(y, window, order, deriv)
 
 
-@njit(nogil=True, inline="always")
+@inline
 def _smooth(xy, window_pts, order):
     n = xy.shape[0]
     if n < order + 2:
@@ -156,14 +156,14 @@ def _smooth(xy, window_pts, order):
     return _savgol(xy, w, order, 0)
 
 
-@_compiled("float64[:, ::1](float64[:, ::1], int64, int64)")
+@compiled("float64[:, ::1](float64[:, ::1], int64, int64)")
 def smooth(xy, window_pts, order):
     """Savitzky-Golay smoothing of a uniformly resampled polyline (window made odd and clipped
     to the line; the line as it is when too short), see :func:`geoops.curves.smooth`."""
     return _smooth(xy, window_pts, order)
 
 
-@njit(nogil=True, inline="always")
+@inline
 def _unit_tangents(xy, window_pts, order):
     n = xy.shape[0]
     if n < 2:
@@ -186,14 +186,14 @@ def _unit_tangents(xy, window_pts, order):
     return d
 
 
-@_compiled("float64[:, ::1](float64[:, ::1], int64, int64)")
+@compiled("float64[:, ::1](float64[:, ::1], int64, int64)")
 def unit_tangents(xy, window_pts, order):
     """Unit tangents from the derivative of a local polynomial fit, see
     :func:`geoops.curves.unit_tangents`."""
     return _unit_tangents(xy, window_pts, order)
 
 
-@njit(nogil=True, inline="always")
+@inline
 def _grid_cell(span_x, span_y, n, length, longest):
     """Cell size (m) for the bucket grid of a polyline of ``n`` vertices and total ``length``
     whose vertices span ``span_x`` by ``span_y``: about two vertex spacings, at least half the
@@ -207,7 +207,7 @@ def _grid_cell(span_x, span_y, n, length, longest):
     return cell if cell > 0 and math.isfinite(cell) else 1.0
 
 
-@njit(nogil=True, inline="always")
+@inline
 def _index(xy):
     n = xy.shape[0]
     x = np.ascontiguousarray(xy[:, 0])
@@ -234,7 +234,7 @@ def _index(xy):
             (nx, ny, start, items, nx2, ny2, start2, items2))
 
 
-@_compiled(f"Tuple(({_POLY}, {_GEO}, {_GRID}))(float64[:, ::1])")
+@compiled(f"Tuple(({_POLY}, {_GEO}, {_GRID}))(float64[:, ::1])")
 def index(xy):
     """A polyline of two or more vertices as the kernels of :mod:`geoops.kernels` take it:
     its arrays ``(x, y, abx, aby, inv_den, s, seg_len)``, the grid geometry ``(x0, y0, cell,
@@ -242,13 +242,13 @@ def index(xy):
     return _index(xy)
 
 
-@njit(nogil=True, inline="always")
+@inline
 def _window_for(sigma, spacing, length):
     w = max(8.0 * spacing, 25.0 * sigma, MIN_WINDOW_M)
     return min(w, MAX_WINDOW_M, max(length / 3.0, MIN_WINDOW_M))
 
 
-@njit(nogil=True, inline="always")
+@inline
 def _median_distance(raw, line):
     """Median distance of the points ``raw`` to the polyline ``line`` (exact nearest points,
     as :meth:`geoops.curves.NearestOnPolyline.query`)."""
@@ -269,7 +269,7 @@ def _median_distance(raw, line):
     return np.median(d)
 
 
-@njit(nogil=True, inline="always")
+@inline
 def _tangent_variance(raw, s_raw, pts, s, sigma, window_pts, z):
     """:func:`geoops.clean._tangent_variance`, the white noise given as standard normal
     draws ``z`` (one row per raw vertex)."""
@@ -295,7 +295,7 @@ def _tangent_variance(raw, s_raw, pts, s, sigma, window_pts, z):
     return acc / count if count else 0.0
 
 
-@_compiled("Tuple((int64, float64[:, ::1], float64[::1], float64[:, ::1], boolean[::1], "
+@compiled("Tuple((int64, float64[:, ::1], float64[::1], float64[:, ::1], boolean[::1], "
            "UniTuple(float64, 6)))(float64[:, ::1], boolean[::1], float64, float64[:, ::1])")
 def clean_track(xy, gap_after, sigma_in, z):
     """The arithmetic of :func:`geoops.clean.clean_line` for one joined line (two or more
@@ -359,7 +359,7 @@ def clean_track(xy, gap_after, sigma_in, z):
             (sigma, window, real_step, tangent_var, raw_length, spacing))
 
 
-@_compiled("float64(float64[:, ::1], float64)")
+@compiled("float64(float64[:, ::1], float64)")
 def least_turn_cosine(xy, base_m):
     """The smallest cosine of the turn between the chord arriving over ``base_m`` and the chord
     leaving over ``base_m`` at any sample of ``xy`` (resampled every ``base_m / 8``), as
@@ -390,7 +390,7 @@ SPIKE_TURN = 2.5
 SPIKE_NEIGHBOUR_TURN = 1.2
 
 
-@njit(nogil=True, inline="always")
+@inline
 def _abs_turns(xy):
     """Absolute heading change at each interior vertex, radians in [0, pi]."""
     n = xy.shape[0]
@@ -404,7 +404,7 @@ def _abs_turns(xy):
     return turn
 
 
-@_compiled("float64[:, ::1](float64[:, ::1], float64, int64)")
+@compiled("float64[:, ::1](float64[:, ::1], float64, int64)")
 def tidy_part(xy, tol, passes):
     """One part of a rut with repeated vertices dropped (each vertex within ``tol`` of the
     vertex before it in the input; none when ``tol`` < 0), then ``passes`` rounds of spike

@@ -233,7 +233,6 @@ def test_spacing_profiles_match_a_direct_measurement(monkeypatch):
     import shapely
 
     import geoops.parallel
-
     from geoops.clean import clean_rut
     from geoops.pairing import NEAR_QUANTILE, NEIGHBOUR_DISTANCE_M, candidate_pairs
 
