@@ -12,6 +12,7 @@ reads files, builds frames or groups ruts into passes.
 
 from __future__ import annotations
 
+import math
 from collections.abc import Callable
 from dataclasses import dataclass, replace
 
@@ -118,8 +119,21 @@ class PairResult:
         return self.follows_first if track == 0 else self.follows_first == self.same_order
 
 
+def _clipped_index(position: Array, lo: int, hi: int) -> np.ndarray:
+    """Nearest whole sample index of each ``position`` (in samples), within ``[lo, hi]``."""
+    i = np.rint(position).astype(np.int64)
+    np.maximum(i, lo, out=i)
+    np.minimum(i, hi, out=i)
+    return i
+
+
+def _left_normals(u: Array) -> Array:
+    """Unit vectors a quarter turn left of the unit vectors ``u`` (C-contiguous)."""
+    return np.ascontiguousarray(u[:, ::-1] * np.array([-1.0, 1.0]))
+
+
 def _interp_bool(mask: np.ndarray, s: Array, step: float) -> np.ndarray:
-    i = np.clip(np.rint(s / step).astype(np.int64), 0, len(mask) - 1)
+    i = _clipped_index(s / step, 0, len(mask) - 1)
     return np.asarray(mask[i], dtype=bool)
 
 
@@ -127,12 +141,12 @@ def _alignment(a: CleanRut, b: CleanRut) -> tuple[float, np.ndarray, Array]:
     """Mean tangent dot product of a's samples against b where they overlap, a's mask of
     samples whose nearest point on b is interior (the overlap), and each sample's distance
     to b."""
-    d, s, _ = b.index.query(a.xy)
+    d, s = b.index.distance_and_position(a.xy)
     edge = 2.0 * b.step
     inside = (s > edge) & (s < b.length - edge) & a.has_data & _interp_bool(b.has_data, s, b.step)
     if not inside.any():
         return 0.0, inside, d
-    j = np.clip(np.rint(s[inside] / b.step).astype(np.int64), 0, len(b.tangents) - 1)
+    j = _clipped_index(s[inside] / b.step, 0, len(b.tangents) - 1)
     dots = np.einsum("ij,ij->i", a.tangents[inside], b.tangents[j])
     return float(np.mean(dots)), inside, d
 
@@ -190,7 +204,7 @@ class _Objective:
         self.base = np.ascontiguousarray(rear.xy[idx], dtype=np.float64)
         self.u = np.ascontiguousarray(along * rear.tangents[idx], dtype=np.float64)
         # left of the travel direction
-        self.n = np.ascontiguousarray(np.column_stack([-self.u[:, 1], self.u[:, 0]]))
+        self.n = _left_normals(self.u)
         self.shift = 0.0
         # tangent noise adds L^2 var(theta) to the expected squared miss; remove it so that
         # noise does not pull the wheelbase towards zero (errors in variables)
@@ -317,7 +331,7 @@ def _fit(h: _Hypothesis, profiled: bool = False) -> tuple[float, float, int, flo
         mse, _ = h.coarse.many(_GRID)
     if not np.isfinite(mse).any():
         return float("nan"), float("inf"), 0, h.fine.shift
-    i = int(np.nanargmin(mse))
+    i = int(np.argmin(np.where(np.isnan(mse), np.inf, mse)))
     bracket = (float(_GRID[max(i - 1, 0)]), float(_GRID[min(i + 1, len(_GRID) - 1)]))
     shift = float(shifts[i]) if profiled else h.fine.shift
     return _newton(h.fine, float(_GRID[i]), bracket, shift, free_shift=profiled)
@@ -473,7 +487,7 @@ def _crossings(grid: Array, chi: Array, length: float) -> tuple[float, float]:
         if not np.isfinite(cb) or cb == ca:
             return float(grid[a])
         f = (CHI2_95_1DOF - ca) / (cb - ca)
-        return float(grid[a] + np.clip(f, 0.0, 1.0) * (grid[b] - grid[a]))
+        return float(grid[a] + min(max(f, 0.0), 1.0) * (grid[b] - grid[a]))
 
     low = WHEELBASE_MIN_M if lo_k == 0 else edge(lo_k, lo_k - 1)
     high = WHEELBASE_MAX_M if hi_k == len(grid) - 1 else edge(hi_k, hi_k + 1)
@@ -531,16 +545,18 @@ def curvature_shared(
     if len(keep) < 6 or len(kf) == 0:
         return True
     u = along * rear.tangents[keep]
-    normal = np.column_stack([-u[:, 1], u[:, 0]])
+    normal = _left_normals(u)
     d, s = front.index.distance_and_position(rear.xy[keep] + length * u + shift * normal)
-    j = np.clip(np.rint(s / front.step).astype(np.int64) - int(cf[0]), 0, len(kf) - 1)
+    j = np.rint(s / front.step).astype(np.int64) - int(cf[0])
+    np.maximum(j, 0, out=j)
+    np.minimum(j, len(kf) - 1, out=j)
     a = kr[keep - cr[0]] - kr[keep - cr[0]].mean()
     b = kf[j] - kf[j].mean()
     den = float(np.sqrt(np.dot(a, a) * np.dot(b, b)))
     if den <= 0:
         return False
     # curvature is signed by each line's own vertex order: align the front's to the rear's
-    at_front = np.clip(j + int(cf[0]), 0, len(front.tangents) - 1)
+    at_front = np.minimum(j + int(cf[0]), len(front.tangents) - 1)
     same = float(np.mean(np.einsum("ij,ij->i", rear.tangents[keep], front.tangents[at_front])))
     r = float(np.dot(a, b)) / den * (1.0 if same >= 0 else -1.0)
     return r > z / np.sqrt(len(a))
@@ -562,11 +578,11 @@ def _wander_factor(corr_len: float, window: float) -> float:
     misfit stays mostly within a window on bench/accuracy.py's unrelated lines."""
     if not np.isfinite(corr_len) or window <= 0:
         return 1.0
-    return float(np.clip(np.sqrt(corr_len / window), 1.0, WANDER_FACTOR_MAX))
+    return min(max(math.sqrt(corr_len / window), 1.0), WANDER_FACTOR_MAX)
 
 
 def _sigmoid(x: float) -> float:
-    return float(1.0 / (1.0 + np.exp(-np.clip(x, -MAX_LOG_ODDS, MAX_LOG_ODDS))))
+    return 1.0 / (1.0 + math.exp(-min(max(x, -MAX_LOG_ODDS), MAX_LOG_ODDS)))
 
 
 def solve_pair(first: CleanRut, second: CleanRut, legs: bool = False) -> PairResult:
