@@ -18,6 +18,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from .clean import CleanRut
+from .order_stats import median_of_sorted, percentile_of_sorted
 
 #: plausible centre-to-centre track widths, metres: ATV about 0.85 to a forwarder about 2.8
 #: (references.md vehicle table)  # common practice
@@ -27,6 +28,8 @@ TRACK_MAX_M = 3.2
 MAX_SPACING_SPREAD = 0.12
 #: largest relative difference of the two sides' wheelbases
 MAX_WHEELBASE_MISMATCH = 0.15
+#: samples of one rear track glanced at before the spacing of two is measured
+GLANCE_SAMPLES = 16
 
 
 @dataclass(frozen=True)
@@ -64,8 +67,8 @@ def spacing(
     if inside.sum() < 8:
         return Spacing(float("inf"), float("inf"), 0.0, True)
     dd = np.sort(d[inside])
-    med = _median_of_sorted(dd)
-    q75, q25 = _percentile_of_sorted(dd, 0.75), _percentile_of_sorted(dd, 0.25)
+    med = median_of_sorted(dd)
+    q75, q25 = percentile_of_sorted(dd, 0.75), percentile_of_sorted(dd, 0.25)
     j = np.clip(np.rint(s[inside] / b.step).astype(np.int64), 0, len(b.tangents) - 1)
     dots = np.einsum("ij,ij->i", a.tangents[inside], b.tangents[j])
     return Spacing(
@@ -73,40 +76,23 @@ def spacing(
     )
 
 
-def _median_of_sorted(v: np.ndarray) -> float:
-    """``np.median`` of an ascending array, to the last bit, without its overhead (a call
-    per candidate pair adds up).
-
-    >>> _median_of_sorted(np.array([1.0, 2.0, 4.0, 8.0])), _median_of_sorted(np.array([3.0]))
-    (3.0, 3.0)
-    """
-    half = len(v) // 2
-    return float(v[half]) if len(v) % 2 else (float(v[half - 1]) + float(v[half])) / 2.0
-
-
-def _percentile_of_sorted(v: np.ndarray, q: float) -> float:
-    """``np.percentile(v, 100 * q)`` (linear interpolation) of an ascending array, to the last
-    bit: numpy's virtual index ``(n - 1) q`` and its two-sided interpolation.
-
-    >>> _percentile_of_sorted(np.array([0.0, 1.0, 2.0, 10.0]), 0.75)
-    4.0
-    """
-    at = (len(v) - 1) * q
-    lo = math.floor(at)
-    hi = min(lo + 1, len(v) - 1)
-    t = at - lo
-    a, b = float(v[lo]), float(v[hi])
-    return b - (b - a) * (1.0 - t) if t >= 0.5 else a + (b - a) * t
-
-
 def same_vehicle(
     rear_a: CleanRut, rear_b: CleanRut, wheelbase_a: float | None, wheelbase_b: float | None
 ) -> Spacing | None:
-    """The spacing of two rear tracks if they look like the two sides of one axle, else None."""
+    """The spacing of two rear tracks if they look like the two sides of one axle, else None.
+
+    The wheelbases are compared first, then a glance at :data:`GLANCE_SAMPLES` samples of
+    ``rear_a``: when none of them lies within :data:`TRACK_MAX_M` of ``rear_b`` the tracks
+    are not measured (half of one track beside the other is needed, far more than the glance
+    can miss)."""
     if wheelbase_a is not None and wheelbase_b is not None:
         mean = 0.5 * (wheelbase_a + wheelbase_b)
         if abs(wheelbase_a - wheelbase_b) > MAX_WHEELBASE_MISMATCH * mean:
             return None
+    glance = rear_a.xy[:: max(len(rear_a.xy) // GLANCE_SAMPLES, 1)]
+    near, _ = rear_b.index.distance_and_position(glance, TRACK_MAX_M)
+    if not (near <= TRACK_MAX_M).any():
+        return None
     sp = spacing(rear_a, rear_b)
     if sp.shared < 0.5 or not TRACK_MIN_M <= sp.median <= TRACK_MAX_M:
         return None

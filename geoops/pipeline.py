@@ -32,6 +32,7 @@ from .inference import DECIDE_AT, MAX_LOG_ODDS, PairResult
 from .integrity import file_sha256, with_layer_checksums
 from .io import InputLayer, OutputLayer, read_layer, write_geojson, write_geopackage
 from .limits import add_length
+from .order_stats import percentile_of_sorted
 from .pairing import choose_pairs
 from .passes import Leg, LegPass, assemble, logit, split_into_legs
 from .vehicles import suggest_class
@@ -169,7 +170,7 @@ def _rear_attributes(
     if len(kappa) < 5:
         return None, None
     # the 95th percentile keeps a sharp turn but not a single noisy sample
-    kmax = float(np.percentile(kappa, 95))
+    kmax = percentile_of_sorted(np.sort(kappa), 0.95)
     if kmax <= 3.0 * noise or kmax < 1e-4:
         return None, None
     steer = float(np.degrees(np.arctan(wheelbase * kmax))) if wheelbase is not None else None
@@ -184,7 +185,7 @@ def _make_pass(pass_id: int, lp: LegPass, legs: list[Leg], ids: list[str]) -> Pa
     curvature = rear.curvature()
     radius, steer = _rear_attributes(rear, res.wheelbase, curvature)
     tol = max(rear.sigma, 0.005)
-    simple = shapely.get_coordinates(shapely.simplify(shapely.LineString(geom), tol * 0.5))
+    simple = shapely.get_coordinates(shapely.simplify(shapely.linestrings(geom), tol * 0.5))
     ruts = sorted({legs[lp.rear_leg].rut, legs[lp.front_leg].rut})
     return PassRecord(
         pass_id=pass_id,
@@ -264,16 +265,10 @@ def _axle_units(leg_passes: list[LegPass], legs: list[Leg]) -> list[tuple[int, .
     costs: dict[tuple[int, int], float] = {}
     if len(single) > 1:
         sides = {i: _side(leg_passes[i], legs) for i in single}
-        # only rear tracks within a track width of each other can be two sides of one axle:
-        # boxes within reach, then a glance at a few samples (join_cost needs half of one
-        # rear track beside the other, far more than the glance can miss)
-        rears = [sides[i].rear for i in single]
-        left, right = box_neighbours([r.xy for r in rears], TRACK_MAX_M)
+        # only rear tracks within a track width of each other can be two sides of one axle
+        rears = [sides[i].rear.xy for i in single]
+        left, right = box_neighbours(rears, TRACK_MAX_M)
         for ia, ib in zip(left.tolist(), right.tolist(), strict=True):
-            glance = rears[ia].xy[:: max(len(rears[ia].xy) // 16, 1)]
-            near, _ = rears[ib].index.distance_and_position(glance, TRACK_MAX_M)
-            if not (near <= TRACK_MAX_M).any():
-                continue
             a, b = single[ia], single[ib]
             joined = join_cost(sides[a], sides[b])
             if joined is not None:
@@ -360,7 +355,7 @@ def _make_axle_pass(
     curvature = rear_a.curvature()
     radius, steer = _rear_attributes(rear_a, wb, curvature)
     simple = shapely.get_coordinates(
-        shapely.simplify(shapely.LineString(geom), 0.5 * max(rear_a.sigma, 0.005))
+        shapely.simplify(shapely.linestrings(geom), 0.5 * max(rear_a.sigma, 0.005))
     )
     # sides: with the travel direction known, the rear track to the right of it is rear_right
     labels: dict[int, tuple[str, bool | None]] = {}

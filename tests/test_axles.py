@@ -104,17 +104,3 @@ def test_axle_choice_is_the_maximum_cardinality_minimum_cost_matching(seed):
     assert len(got) == len(expected)
     assert sum(costs[e] for e in got) == pytest.approx(sum(costs[e] for e in expected), abs=1e-12)
     assert got == expected  # continuous costs: the optimum is unique
-
-
-@pytest.mark.parametrize("n", [1, 2, 3, 4, 5, 8, 9, 10, 11, 17, 64, 101, 250])
-def test_spacing_statistics_match_numpy_to_the_last_bit(n):
-    # source: numpy 2.x median and percentile (method="linear", Hyndman & Fan type 7)
-    from geoops.axles import _median_of_sorted, _percentile_of_sorted
-
-    rng = np.random.default_rng(n)
-    samples = (rng.uniform(0.5, 3.5, n), rng.lognormal(0.0, 2.0, n), rng.uniform(0, 3, n).round(1))
-    for values in samples:
-        v = np.sort(values)
-        assert _median_of_sorted(v) == float(np.median(values))
-        for q in (0.25, 0.75):
-            assert _percentile_of_sorted(v, q) == float(np.percentile(values, 100 * q))
