@@ -48,7 +48,8 @@ def spacing(
     a: CleanRut, b: CleanRut, near: tuple[np.ndarray, np.ndarray] | None = None
 ) -> Spacing:
     """Spacing profile of track ``b`` seen from track ``a``. ``near``: the distances and
-    positions of ``b.index.query(a.xy)`` when the caller has them already.
+    positions of ``b.index.distance_and_position(a.xy)`` (or of its ``query``) when the
+    caller has them already.
 
     Examples
     --------
@@ -61,7 +62,7 @@ def spacing(
     >>> round(s.median, 1), s.same_order
     (1.6, True)
     """
-    d, s = b.index.query(a.xy)[:2] if near is None else near
+    d, s = b.index.distance_and_position(a.xy) if near is None else near
     edge = 2.0 * b.step
     inside = (s > edge) & (s < b.length - edge) & a.has_data
     if inside.sum() < 8:

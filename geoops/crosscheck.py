@@ -75,7 +75,7 @@ def steady_turn_wheelbase(
     if len(k_f) < 3:
         return None
     # the front's curvature where it runs beside those rear points
-    _, s_front, _ = front.index.query(rear.xy[c_r[steady]])
+    _, s_front = front.index.distance_and_position(rear.xy[c_r[steady]])
     j = np.clip(np.rint(s_front / front.step).astype(np.int64) - c_f[0], 0, len(k_f) - 1)
     r_rear = 1.0 / np.abs(k_r[steady])
     r_front = 1.0 / np.maximum(np.abs(k_f[j]), 1e-9)
