@@ -130,6 +130,8 @@ def chain_parts(parts: list[Array]) -> tuple[Array, Array]:
     parts = [p for p in parts if len(p) >= 2]
     if not parts:
         return np.empty((0, 2)), np.empty(0, dtype=bool)
+    if len(parts) == 1:
+        return parts[0], np.zeros(len(parts[0]), dtype=bool)
     lengths = [float(arc_length(p)[-1]) for p in parts]
     order = sorted(range(len(parts)), key=lambda i: -lengths[i])
     chain = [parts[order[0]]]

@@ -265,6 +265,20 @@ class _Objective:
         """Mean truncated squared miss and samples used, per wheelbase."""
         return self._mse(self._sums(lengths, kernels.PLAIN), lengths)
 
+    def best_on_grid(self, lengths: Array) -> int:
+        """Index of the wheelbase in ``lengths`` whose :meth:`many` misfit is least (the
+        first of equals; -1 when none is finite), found without finishing the sums of
+        wheelbases that cannot win (:func:`geoops.kernels.best_on_grid`)."""
+        index = self.target.index
+        if not hasattr(index, "poly"):  # a one-point target: nothing can land on it
+            return -1
+        best, _ = kernels.best_on_grid(
+            self.base, self.u, self.n, float(self.shift), np.ascontiguousarray(lengths, float),
+            index.poly, index.geo, index.grid, self.usable, float(self.target.step),
+            float(self.edge), float(self.cap2), float(self.tvar), int(self.need),
+        )
+        return int(best)
+
 
 def _subsample(mask: np.ndarray, most: int) -> np.ndarray:
     idx = np.flatnonzero(mask)
@@ -327,11 +341,12 @@ def _fit(h: _Hypothesis, profiled: bool = False) -> tuple[float, float, int, flo
     :meth:`_Objective.profiled`). Returns (wheelbase, mse, samples used, shift)."""
     if profiled:
         mse, _, shifts = h.coarse.profiled(_GRID)
+        finite = bool(np.isfinite(mse).any())
+        i = int(np.argmin(np.where(np.isnan(mse), np.inf, mse))) if finite else -1
     else:
-        mse, _ = h.coarse.many(_GRID)
-    if not np.isfinite(mse).any():
+        i = h.coarse.best_on_grid(_GRID)
+    if i < 0:
         return float("nan"), float("inf"), 0, h.fine.shift
-    i = int(np.argmin(np.where(np.isnan(mse), np.inf, mse)))
     bracket = (float(_GRID[max(i - 1, 0)]), float(_GRID[min(i + 1, len(_GRID) - 1)]))
     shift = float(shifts[i]) if profiled else h.fine.shift
     return _newton(h.fine, float(_GRID[i]), bracket, shift, free_shift=profiled)

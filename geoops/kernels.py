@@ -167,7 +167,7 @@ def closest(pts, poly, geo, grid, limit):
     cells and in cells :data:`COARSE` times larger; a query still unresolved after
     :data:`FINE_RINGS` rings of fine cells (far from the line) continues on the coarse grid,
     where fewer, fuller cells cover the same distance."""
-    x, y, abx, aby, inv_den, _, _ = poly
+    x, y, abx, aby, inv_den, _arc, _lengths = poly
     x0, y0, cell, half_longest = geo
     nx, ny, start, items, nx2, ny2, start2, items2 = grid
     m = pts.shape[0]
@@ -179,6 +179,23 @@ def closest(pts, poly, geo, grid, limit):
             pts[q, 0], pts[q, 1], x, y, abx, aby, inv_den, x0, y0, cell, half_longest,
             nx, ny, start, items, nx2, ny2, start2, items2, limit)
     return out_d2, out_seg, out_t
+
+
+@inline
+def _landing(px, py, poly, geo, grid, usable, step, edge):
+    """Where a predicted front point lands on the target polyline: whether it counts (its
+    nearest point more than ``edge`` from either end, on a sample marked ``usable``, the
+    target's samples ``step`` apart), the squared distance, and the segment and fraction
+    along it of the nearest point."""
+    x, y, abx, aby, inv_den, s_cum, seg_len = poly
+    x0, y0, cell, half_longest = geo
+    nx, ny, start, items, nx2, ny2, start2, items2 = grid
+    d2, sg, t = _nearest(px, py, x, y, abx, aby, inv_den, x0, y0, cell, half_longest,
+                         nx, ny, start, items, nx2, ny2, start2, items2, np.inf)
+    s = s_cum[sg] + t * seg_len[sg]
+    at = min(max(int(np.rint(s / step)), 0), usable.shape[0] - 1)
+    valid = s > edge and s < s_cum[-1] - edge and usable[at]
+    return valid, d2, sg, t
 
 
 #: what :func:`misfit_sums` accumulates per wheelbase: plain, with the Gauss-Newton sums, or
@@ -204,13 +221,9 @@ def misfit_sums(base, u, nrm, shift, lengths, mode, poly, geo, grid, usable, ste
     lateral shift). PROFILED replaces the squared distance by the squared lateral miss along
     ``nrm`` less the best constant shift (their mean over the untruncated predictions,
     within +- ``shift_max``), reported in column SHIFT."""
-    x, y, abx, aby, inv_den, s_cum, seg_len = poly
-    x0, y0, cell, half_longest = geo
-    nx, ny, start, items, nx2, ny2, start2, items2 = grid
+    x, y, abx, aby, _inv, _arc, seg_len = poly
     m = base.shape[0]
     k = lengths.shape[0]
-    tlen = s_cum[-1]
-    last = usable.shape[0] - 1
     out = np.zeros((k, 8))
     lateral = np.empty(m)
     ok = np.empty(m, dtype=np.bool_)
@@ -221,13 +234,7 @@ def misfit_sums(base, u, nrm, shift, lengths, mode, poly, geo, grid, usable, ste
         for i in range(m):
             px = base[i, 0] + shift * nrm[i, 0] + L * u[i, 0]
             py = base[i, 1] + shift * nrm[i, 1] + L * u[i, 1]
-            d2, sg, t = _nearest(px, py, x, y, abx, aby, inv_den, x0, y0, cell, half_longest,
-                                 nx, ny, start, items, nx2, ny2, start2, items2,
-                                 np.inf)
-            s = s_cum[sg] + t * seg_len[sg]
-            at = int(np.rint(s / step))
-            at = min(max(at, 0), last)
-            valid = s > edge and s < tlen - edge and usable[at]
+            valid, d2, sg, t = _landing(px, py, poly, geo, grid, usable, step, edge)
             ok[i] = valid
             if not valid:
                 continue
@@ -263,6 +270,53 @@ def misfit_sums(base, u, nrm, shift, lengths, mode, poly, geo, grid, usable, ste
                     r = lateral[i] - c
                     out[j, SUM_SQ] += min(r * r, cap2)
     return out
+
+
+@compiled(f"Tuple((int64, float64[::1]))(float64[:, ::1], float64[:, ::1], float64[:, ::1], "
+          f"float64, float64[::1], {_POLY}, {_GEO}, {_GRID}, boolean[::1], float64, float64, "
+          f"float64, float64, int64)")
+def best_on_grid(base, u, nrm, shift, lengths, poly, geo, grid, usable, step, edge, cap2, tvar,
+                 need):
+    """The wheelbase of ``lengths`` with the least misfit: :func:`misfit_sums`' PLAIN mean
+    truncated squared miss less the tangent-noise term ``L^2 tvar``, infinite where fewer
+    than ``need`` predictions count. Returns its index (-1 when none is finite; the first of
+    equals) and the misfit per wheelbase, where a wheelbase that cannot be the best is left
+    infinite, unfinished.
+
+    That cut is exact: after some predictions, the squared misses summed so far over the most
+    predictions that can count (all ``m``), less ``L^2 tvar``, is a lower bound of the
+    wheelbase's misfit; once it exceeds the best misfit found, the rest is not needed. A
+    wrong wheelbase sends predictions off the target, each truncated miss a large share of a
+    good fit's whole sum, so most are cut after a few predictions."""
+    m = base.shape[0]
+    k = lengths.shape[0]
+    mse = np.full(k, np.inf)
+    best = np.inf
+    best_j = -1
+    for j in range(k):
+        L = lengths[j]
+        noise = L * L * tvar
+        total = 0.0
+        used = 0
+        cut = False
+        for i in range(m):
+            px = base[i, 0] + shift * nrm[i, 0] + L * u[i, 0]
+            py = base[i, 1] + shift * nrm[i, 1] + L * u[i, 1]
+            valid, d2, _seg, _frac = _landing(px, py, poly, geo, grid, usable, step, edge)
+            if not valid:
+                continue
+            used += 1
+            total += min(d2, cap2)
+            if total / m - noise > best:
+                cut = True
+                break
+        if cut or used < need:
+            continue
+        mse[j] = total / used - noise
+        if mse[j] < best:
+            best = mse[j]
+            best_j = j
+    return best_j, mse
 
 
 #: Gauss-Newton evaluations at most per fit, and the relative change of the wheelbase at which
@@ -383,7 +437,7 @@ def spacing_profiles(first, second, offsets, arrays, geos, grids, glance, sample
         x0, y0, cell, half = geos[b, 0], geos[b, 1], geos[b, 2], geos[b, 3]
         found = False
         for i in range(va0, va0 + na, max(na // glance, 1)):
-            d2, _, _ = _nearest(xs[i], ys[i], x, y, abx, aby, inv, x0, y0, cell, half,
+            d2, _seg, _frac = _nearest(xs[i], ys[i], x, y, abx, aby, inv, x0, y0, cell, half,
                                 nxs[b], nys[b], st1, it1, nxs2[b], nys2[b], st2, it2, reach)
             if np.sqrt(d2) <= reach:
                 found = True
@@ -395,7 +449,7 @@ def spacing_profiles(first, second, offsets, arrays, geos, grids, glance, sample
         within = np.empty((na + stride - 1) // stride)
         count = 0
         for i in range(va0, va0 + na, stride):
-            d2, _, _ = _nearest(xs[i], ys[i], x, y, abx, aby, inv, x0, y0, cell, half,
+            d2, _seg, _frac = _nearest(xs[i], ys[i], x, y, abx, aby, inv, x0, y0, cell, half,
                                 nxs[b], nys[b], st1, it1, nxs2[b], nys2[b], st2, it2, reach)
             total += 1
             d = np.sqrt(d2)

@@ -259,11 +259,11 @@ def _median_distance(raw, line):
             d[q] = math.hypot(raw[q, 0] - line[0, 0], raw[q, 1] - line[0, 1])
         return np.median(d)
     poly, geo, grid = _index(line)
-    x, y, abx, aby, inv_den, _, _ = poly
+    x, y, abx, aby, inv_den, _arc, _lengths = poly
     x0, y0, cell, half_longest = geo
     nx, ny, start, items, nx2, ny2, start2, items2 = grid
     for q in range(m):
-        d2, _, _ = _nearest(raw[q, 0], raw[q, 1], x, y, abx, aby, inv_den, x0, y0, cell,
+        d2, _seg, _frac = _nearest(raw[q, 0], raw[q, 1], x, y, abx, aby, inv_den, x0, y0, cell,
                             half_longest, nx, ny, start, items, nx2, ny2, start2, items2, np.inf)
         d[q] = math.sqrt(d2)
     return np.median(d)
@@ -330,7 +330,7 @@ def clean_track(xy, gap_after, sigma_in, z):
     if math.isnan(sigma):
         w0 = _window_for(0.0, spacing, total)
         step0 = min(max(min(w0 / 10.0, spacing / 2.0), 0.02), 0.5)
-        pts0, _ = _resample(xy, s_raw, step0)
+        pts0, _at0 = _resample(xy, s_raw, step0)
         sm0 = _smooth(pts0, max(int(round(w0 / step0)), 5), ORDER)
         n_in_window = max(w0 / max(spacing, 1e-6), 5.0)
         noise = _median_distance(xy, sm0) / 0.6745
@@ -368,7 +368,7 @@ def least_turn_cosine(xy, base_m):
     if xy.shape[0] < 3:
         return 2.0
     k = 8
-    pts, _ = _resample(xy, _arc_length(xy), base_m / k)
+    pts, _at = _resample(xy, _arc_length(xy), base_m / k)
     n = pts.shape[0]
     if n < 2 * k + 1:
         return 2.0

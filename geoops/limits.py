@@ -135,12 +135,21 @@ def add_length(total_m: float, parts: list[np.ndarray]) -> float:
     --------
     >>> add_length(10.0, [np.array([[0.0, 0.0], [3.0, 4.0]])])
     15.0
+    >>> add_length(0.0, [np.array([[0.0, 0.0], [3.0, 4.0]]), np.array([[900.0, 0.0]]),
+    ...                  np.array([[0.0, 0.0], [0.0, 2.0]])])  # gaps between parts not counted
+    7.0
     >>> add_length(0.0, [np.array([[0.0, 0.0], [3.0e6, 4.0e6]])])
     Traceback (most recent call last):
     ...
     geoops.errors.LimitExceeded: The lines of the layer are at least 5000 km long...
     """
-    total = total_m + sum(float(np.hypot(*np.diff(p, axis=0).T).sum()) for p in parts)
+    total = total_m
+    if parts:
+        # one pass over all parts: the segments that would join two parts count nothing
+        seg = np.hypot(*np.diff(np.concatenate(parts), axis=0).T)
+        joins = np.cumsum([len(p) for p in parts])[:-1] - 1
+        seg[joins[(joins >= 0) & (joins < len(seg))]] = 0.0
+        total += float(seg.sum())
     cap_km = limit("max_layer_km")
     if not total <= cap_km * 1000.0:  # NaN counts as over
         raise LimitExceeded(

@@ -444,7 +444,6 @@ def analyze_layer(
     ruts: dict[int, CleanRut] = {}
     legs: list[Leg] = []
     bad: list[tuple[int, str]] = []
-    length_m = 0.0
     local: list[list[np.ndarray]] = []
     # one transformation for the whole layer (a call per part costs more than the work)
     flat = [p for parts in layer.parts for p in parts]
@@ -454,7 +453,7 @@ def analyze_layer(
     it = iter(pieces if flat else [])
     for parts in layer.parts:
         local.append([next(it) for _ in parts])
-        length_m = add_length(length_m, local[-1])  # time and memory grow with length: bounded
+    add_length(0.0, pieces if flat else [])  # time and memory grow with length: bounded
     # pieces of one rut mapped as separate features are cleaned as one rut, named by its
     # first piece; its source ids list every piece
     ids = list(layer.ids)

@@ -169,3 +169,34 @@ def test_swapping_the_two_tracks_keeps_the_verdict():
     assert one.verdict == two.verdict == "decided"
     assert one.follows(0) == two.follows(1)
     assert one.wheelbase == pytest.approx(two.wheelbase, rel=1e-6)
+
+
+@pytest.mark.parametrize("seed", range(6))
+def test_the_cut_grid_search_finds_the_full_grids_best(seed: int) -> None:
+    """kernels.best_on_grid stops summing a wheelbase once it cannot win; its choice must be
+    the full evaluation's argmin (first of equals) for every hypothesis, shift and noise
+    term, including targets so far off that every prediction is truncated (all equal)."""
+    from geoops.inference import _GRID, _Objective, _subsample
+
+    sim, rear_key, front_key, _ = _pair_case(seed)
+    rng = np.random.default_rng(seed)
+    lines = mapped_lines(sim, NOISE, SPACING, rng, which=[rear_key, front_key])
+    rear, front = clean_rut([lines[rear_key]]), clean_rut([lines[front_key]])
+    far = clean_rut([lines[front_key] + [0.0, 40.0]])
+    idx = _subsample(np.ones(len(rear.xy), dtype=bool), 32)
+    checked = 0
+    for target, along, shift, tvar in [
+        (front, 1, 0.0, None), (front, -1, 0.0, None), (front, 1, 0.3, None),
+        (front, 1, 0.0, 0.0), (front, -1, 0.0, 0.05), (far, 1, 0.0, 0.0), (far, -1, 0.0, None),
+    ]:
+        obj = _Objective(rear, target, along, idx, 0.5)
+        obj.shift = shift
+        if tvar is not None:
+            obj.tvar = tvar
+        mse, _ = obj.many(_GRID)
+        expected = int(np.argmin(np.where(np.isnan(mse), np.inf, mse)))
+        if not np.isfinite(mse).any():
+            expected = -1
+        assert obj.best_on_grid(_GRID) == expected
+        checked += expected >= 0
+    assert checked >= 5
