@@ -171,19 +171,21 @@ def choose_axles(costs: dict[tuple[int, int], float]) -> list[tuple[int, int]]:
     """
     if not costs:
         return []
-    from scipy.sparse import coo_matrix
-    from scipy.sparse.csgraph import connected_components
+    # connected groups of candidates (union-find; scipy.sparse would cost 0.1 s to import)
+    root: dict[int, int] = {}
 
-    keys = list(costs)
-    nodes = sorted({k for e in keys for k in e})
-    pos = {k: i for i, k in enumerate(nodes)}
-    rows = [pos[a] for a, _ in keys]
-    cols = [pos[b] for _, b in keys]
-    graph = coo_matrix(([1] * len(keys), (rows, cols)), shape=(len(nodes), len(nodes)))
-    _, label = connected_components(graph, directed=False)
+    def find(k: int) -> int:
+        root.setdefault(k, k)
+        while root[k] != k:
+            root[k] = root[root[k]]
+            k = root[k]
+        return k
+
+    for a, b in costs:
+        root[find(a)] = find(b)
     groups: dict[int, dict[tuple[int, int], float]] = {}
-    for e, r in zip(keys, rows, strict=True):
-        groups.setdefault(int(label[r]), {})[e] = costs[e]
+    for e, c in costs.items():
+        groups.setdefault(find(e[0]), {})[e] = c
     out: list[tuple[int, int]] = []
     for edges in groups.values():
         if len(edges) == 1:

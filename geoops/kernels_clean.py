@@ -88,28 +88,65 @@ def savgol_matrix(window, order, deriv):
     """The ``(w, w)`` matrix mapping one window's values to the fitted polynomial's values (or
     ``deriv``-th derivative per sample) at each of its samples: row ``w // 2`` is the centre
     kernel, the rows before and after it serve the line's ends. Positions are scaled to
-    [-1, 1] before the least-squares fit, which keeps its normal equations well conditioned
-    (solved directly: a small SVD per call would cost more than the filtering)."""
+    [-1, 1] before the least-squares fit, which keeps its normal equations well conditioned;
+    they are solved by Gaussian elimination with partial pivoting, in loops (numpy's linear
+    algebra would load scipy's LAPACK, 0.1 s, for a 4 x 4 system)."""
     half = window // 2
     scale = max(half, 1)
-    vander = np.empty((window, order + 1))
+    p = order + 1
+    vander = np.empty((window, p))
     for i in range(window):
-        p = (i - half) / scale
+        x = (i - half) / scale
         v = 1.0
-        for k in range(order + 1):
+        for k in range(p):
             vander[i, k] = v
-            v *= p
-    pinv = np.linalg.solve(vander.T @ vander, vander.T)  # (order + 1, w)
+            v *= x
+    # normal equations G c = V^T y for every window value at once: G pinv = V^T
+    gram = np.zeros((p, p))
+    rhs = np.zeros((p, window))
+    for a in range(p):
+        for b in range(p):
+            acc = 0.0
+            for i in range(window):
+                acc += vander[i, a] * vander[i, b]
+            gram[a, b] = acc
+        for i in range(window):
+            rhs[a, i] = vander[i, a]
+    for col in range(p):
+        pivot = col
+        for r in range(col + 1, p):
+            if abs(gram[r, col]) > abs(gram[pivot, col]):
+                pivot = r
+        if pivot != col:
+            for c in range(p):
+                gram[col, c], gram[pivot, c] = gram[pivot, c], gram[col, c]
+            for c in range(window):
+                rhs[col, c], rhs[pivot, c] = rhs[pivot, c], rhs[col, c]
+        for r in range(col + 1, p):
+            f = gram[r, col] / gram[col, col]
+            for c in range(col, p):
+                gram[r, c] -= f * gram[col, c]
+            for c in range(window):
+                rhs[r, c] -= f * rhs[col, c]
+    pinv = np.empty((p, window))
+    for r in range(p - 1, -1, -1):
+        for c in range(window):
+            acc = rhs[r, c]
+            for k in range(r + 1, p):
+                acc -= gram[r, k] * pinv[k, c]
+            pinv[r, c] = acc / gram[r, r]
     # derivative of the polynomial in scaled position, then per sample (1 / scale per order)
-    deriv_vander = np.zeros((window, order + 1))
+    out = np.zeros((window, window))
     for i in range(window):
-        p = (i - half) / scale
-        for k in range(deriv, order + 1):
-            c = 1.0
+        x = (i - half) / scale
+        for k in range(deriv, p):
+            falling = 1.0  # k (k - 1) ... (k - deriv + 1)
             for m in range(deriv):
-                c *= k - m
-            deriv_vander[i, k] = c * p ** (k - deriv) / scale**deriv
-    return np.ascontiguousarray(deriv_vander @ pinv)
+                falling *= k - m
+            weight = falling * x ** (k - deriv) / scale**deriv
+            for j in range(window):
+                out[i, j] += weight * pinv[k, j]
+    return out
 
 
 @inline

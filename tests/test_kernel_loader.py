@@ -104,3 +104,23 @@ def test_the_digest_covers_every_kernel_source() -> None:
     # a kernel edited after the build must not run from the old extension
     names = {p.name for p in (ROOT / "geoops").glob("kernel*.py")} - {"kernel_build.py"}
     assert names == set(kernel_loader.SOURCES)
+
+
+@pytest.mark.skipif(shutil.which("cc") is None, reason="no C compiler: no ahead-of-time build")
+def test_an_analysis_loads_neither_numba_nor_scipy(tmp_path: Path) -> None:
+    # start-up is a large share of a small job: numba (0.6 s), scipy.spatial (0.2 s), scipy's
+    # LAPACK (0.1 s) and networkx (0.2 s) must stay out of an ordinary analysis
+    script = (
+        "import sys\nfrom geoops import cli\n"
+        "try:\n    cli.main(sys.argv[1:])\nexcept SystemExit:\n    pass\n"
+        "print(sorted({m.split('.')[0] for m in sys.modules} & "
+        "{'numba', 'scipy', 'networkx', 'rasterio', 'skimage'}))"
+    )
+    out = subprocess.run(
+        [sys.executable, "-c", script, "analyze", "sample_layers/harrowmere_analyst.gpkg",
+         "--layer", "ruts_digitised", "--id-field", "rut_ref", "-q",
+         "-o", str(tmp_path / "out.gpkg")],
+        cwd=ROOT, capture_output=True, text=True, timeout=300, check=True,
+    )
+    assert (tmp_path / "out.gpkg").exists()
+    assert out.stdout.strip().splitlines()[-1] == "[]"
