@@ -14,6 +14,7 @@ pickled.
 
 from __future__ import annotations
 
+import gc
 import multiprocessing as mp
 import os
 from collections.abc import Callable, Sequence
@@ -69,10 +70,14 @@ def pool_map(
         return [fn(state, item) for item in items]
     global _STATE
     _STATE = state
+    # the workers' garbage collector must not walk the parent's objects: it would touch (and
+    # so copy, page by page) all of the inherited heap; frozen objects are left alone
+    gc.freeze()
     try:
         with mp.get_context("fork").Pool(n) as pool:
             return list(pool.imap(_call, [(fn, item) for item in items], chunksize=CHUNK))
     finally:
+        gc.unfreeze()
         _STATE = {}
 
 
