@@ -15,6 +15,7 @@ from __future__ import annotations
 import math
 from collections.abc import Callable
 from dataclasses import dataclass, replace
+from functools import cached_property
 
 import numpy as np
 
@@ -185,6 +186,13 @@ def _merged_stretches(
     return np.asarray(wide, dtype=bool)
 
 
+def _need(samples: int) -> int:
+    """Predictions that must count for a misfit: at least a quarter of the overlap's samples
+    (a short leg of a three-point turn may see its front track only over its length minus one
+    wheelbase), and 8."""
+    return max(8, int(0.25 * samples))
+
+
 class _Objective:
     """Mean truncated squared miss of the tangent-extended rear points against the target."""
 
@@ -211,9 +219,7 @@ class _Objective:
         self.tvar = rear.tangent_var
         self.target = target
         self.cap2 = cap * cap
-        # at least a quarter of the overlap: a short leg (a three-point turn) may see its front
-        # track only over its length minus one wheelbase
-        self.need = max(8, int(0.25 * len(idx)))
+        self.need = _need(len(idx))
         self.edge = 2.0 * target.step
 
     def reaches(self, s: Array) -> np.ndarray:
@@ -314,17 +320,56 @@ def _newton(
     return float(length), float(mse), int(used), float(shift)
 
 
-@dataclass
 class _Hypothesis:
     """One hypothesis's objective on two sample sets: a few rear samples to place the
     wheelbase on the coarse grid, and all of them (up to FINE_SAMPLES) to refine it and for
-    every figure that is reported or compared."""
+    every figure that is reported or compared. The objectives are built when first asked
+    for: most hypotheses need only their plain fit (:meth:`fit`)."""
 
-    coarse: _Objective
-    fine: _Objective
+    def __init__(
+        self,
+        rear: CleanRut,
+        target: CleanRut,
+        along: int,
+        samples: list[np.ndarray],
+        cap: float,
+        usable: np.ndarray,
+    ):
+        self.rear, self.target, self.along = rear, target, along
+        self.samples, self.cap = samples, cap
+        self.usable = np.ascontiguousarray(usable, bool)
+
+    @cached_property
+    def coarse(self) -> _Objective:
+        return _Objective(self.rear, self.target, self.along, self.samples[0], self.cap,
+                          self.usable)
+
+    @cached_property
+    def fine(self) -> _Objective:
+        return _Objective(self.rear, self.target, self.along, self.samples[1], self.cap,
+                          self.usable)
 
     def set_shift(self, shift: float) -> None:
         self.coarse.shift = self.fine.shift = shift
+
+    def fit(self, rear_arrays: list[tuple[Array, Array]]) -> tuple[float, float, int, float]:
+        """Best wheelbase without a lateral shift, in one compiled call
+        (:func:`geoops.kernels.fit_direction`): a log grid on the coarse samples places it
+        between two grid neighbours, Gauss-Newton steps on all samples refine it.
+        ``rear_arrays`` holds the rear track's points and tangents at the coarse and the fine
+        samples (shared by both directions). Returns (wheelbase, mse, samples used, shift)."""
+        index = self.target.index
+        if not hasattr(index, "poly"):  # a one-point target: nothing can land on it
+            return float("nan"), float("inf"), 0, 0.0
+        (coarse_base, coarse_tangents), (fine_base, fine_tangents) = rear_arrays
+        length, mse, used, shift = kernels.fit_direction(
+            coarse_base, coarse_tangents, fine_base, fine_tangents, float(self.along), _GRID,
+            index.poly, index.geo, index.grid, self.usable, float(self.target.step),
+            2.0 * self.target.step, self.cap * self.cap, SHIFT_MAX_M,
+            float(self.rear.tangent_var), _need(len(self.samples[0])),
+            _need(len(self.samples[1])),
+        )
+        return float(length), float(mse), int(used), float(shift)
 
 
 def _measure(obj: _Objective, profiled: bool) -> Callable[[Array], tuple[Array, Array]]:
@@ -334,22 +379,18 @@ def _measure(obj: _Objective, profiled: bool) -> Callable[[Array], tuple[Array, 
     return obj.many
 
 
-def _fit(h: _Hypothesis, profiled: bool = False) -> tuple[float, float, int, float]:
-    """Best wheelbase of one hypothesis: a log grid on the coarse samples places it between
-    two grid neighbours, Gauss-Newton steps on all samples refine it (see :func:`_newton`).
-    ``profiled``: with a constant lateral shift fitted jointly (see
-    :meth:`_Objective.profiled`). Returns (wheelbase, mse, samples used, shift)."""
-    if profiled:
-        mse, _, shifts = h.coarse.profiled(_GRID)
-        finite = bool(np.isfinite(mse).any())
-        i = int(np.argmin(np.where(np.isnan(mse), np.inf, mse))) if finite else -1
-    else:
-        i = h.coarse.best_on_grid(_GRID)
-    if i < 0:
+def _fit_shifted(h: _Hypothesis) -> tuple[float, float, int, float]:
+    """Best wheelbase of one hypothesis with a constant lateral shift fitted jointly: a log
+    grid on the coarse samples with the shift profiled out (see :meth:`_Objective.profiled`)
+    places it between two grid neighbours, Gauss-Newton steps on all samples refine both
+    (see :func:`_newton`); :meth:`_Hypothesis.fit` is the same without the shift. Returns
+    (wheelbase, mse, samples used, shift)."""
+    mse, _, shifts = h.coarse.profiled(_GRID)
+    if not np.isfinite(mse).any():
         return float("nan"), float("inf"), 0, h.fine.shift
+    i = int(np.argmin(np.where(np.isnan(mse), np.inf, mse)))
     bracket = (float(_GRID[max(i - 1, 0)]), float(_GRID[min(i + 1, len(_GRID) - 1)]))
-    shift = float(shifts[i]) if profiled else h.fine.shift
-    return _newton(h.fine, float(_GRID[i]), bracket, shift, free_shift=profiled)
+    return _newton(h.fine, float(_GRID[i]), bracket, float(shifts[i]), free_shift=True)
 
 
 def _fit_with_shift(
@@ -370,7 +411,7 @@ def _fit_with_shift(
     if not np.isfinite(mse):
         return length, mse, n_used, 0.0
     h.set_shift(0.0)
-    length2, mse2, n2, shift = _fit(h, profiled=True)
+    length2, mse2, n2, shift = _fit_shifted(h)
     h.set_shift(shift)
     if not (np.isfinite(mse2) and mse2 < mse):
         h.set_shift(0.0)
@@ -663,11 +704,13 @@ def solve_pair(first: CleanRut, second: CleanRut, legs: bool = False) -> PairRes
     for rear_i in (0, 1):
         rear, target = tracks[rear_i], tracks[1 - rear_i]
         samples = [_subsample(overlaps[rear_i], most) for most in (COARSE_SAMPLES, FINE_SAMPLES)]
+        rear_arrays = [
+            (np.ascontiguousarray(rear.xy[idx]), np.ascontiguousarray(rear.tangents[idx]))
+            for idx in samples
+        ]
         for along in (1, -1):
-            hyp = _Hypothesis(
-                *(_Objective(rear, target, along, idx, cap, usable[1 - rear_i]) for idx in samples)
-            )
-            length, mse, n_used, _ = _fit(hyp)
+            hyp = _Hypothesis(rear, target, along, samples, cap, usable[1 - rear_i])
+            length, mse, n_used, _ = hyp.fit(rear_arrays)
             follows_rear_order = along > 0
             follows_first = follows_rear_order if rear_i == 0 else follows_rear_order == same_order
             fits.append(

@@ -272,22 +272,9 @@ def misfit_sums(base, u, nrm, shift, lengths, mode, poly, geo, grid, usable, ste
     return out
 
 
-@compiled(f"Tuple((int64, float64[::1]))(float64[:, ::1], float64[:, ::1], float64[:, ::1], "
-          f"float64, float64[::1], {_POLY}, {_GEO}, {_GRID}, boolean[::1], float64, float64, "
-          f"float64, float64, int64)")
-def best_on_grid(base, u, nrm, shift, lengths, poly, geo, grid, usable, step, edge, cap2, tvar,
-                 need):
-    """The wheelbase of ``lengths`` with the least misfit: :func:`misfit_sums`' PLAIN mean
-    truncated squared miss less the tangent-noise term ``L^2 tvar``, infinite where fewer
-    than ``need`` predictions count. Returns its index (-1 when none is finite; the first of
-    equals) and the misfit per wheelbase, where a wheelbase that cannot be the best is left
-    infinite, unfinished.
-
-    That cut is exact: after some predictions, the squared misses summed so far over the most
-    predictions that can count (all ``m``), less ``L^2 tvar``, is a lower bound of the
-    wheelbase's misfit; once it exceeds the best misfit found, the rest is not needed. A
-    wrong wheelbase sends predictions off the target, each truncated miss a large share of a
-    good fit's whole sum, so most are cut after a few predictions."""
+@inline
+def _best_on_grid(base, u, nrm, shift, lengths, poly, geo, grid, usable, step, edge, cap2, tvar,
+                  need):
     m = base.shape[0]
     k = lengths.shape[0]
     mse = np.full(k, np.inf)
@@ -319,23 +306,35 @@ def best_on_grid(base, u, nrm, shift, lengths, poly, geo, grid, usable, step, ed
     return best_j, mse
 
 
+@compiled(f"Tuple((int64, float64[::1]))(float64[:, ::1], float64[:, ::1], float64[:, ::1], "
+          f"float64, float64[::1], {_POLY}, {_GEO}, {_GRID}, boolean[::1], float64, float64, "
+          f"float64, float64, int64)")
+def best_on_grid(base, u, nrm, shift, lengths, poly, geo, grid, usable, step, edge, cap2, tvar,
+                 need):
+    """The wheelbase of ``lengths`` with the least misfit: :func:`misfit_sums`' PLAIN mean
+    truncated squared miss less the tangent-noise term ``L^2 tvar``, infinite where fewer
+    than ``need`` predictions count. Returns its index (-1 when none is finite; the first of
+    equals) and the misfit per wheelbase, where a wheelbase that cannot be the best is left
+    infinite, unfinished.
+
+    That cut is exact: after some predictions, the squared misses summed so far over the most
+    predictions that can count (all ``m``), less ``L^2 tvar``, is a lower bound of the
+    wheelbase's misfit; once it exceeds the best misfit found, the rest is not needed. A
+    wrong wheelbase sends predictions off the target, each truncated miss a large share of a
+    good fit's whole sum, so most are cut after a few predictions."""
+    return _best_on_grid(base, u, nrm, shift, lengths, poly, geo, grid, usable, step, edge, cap2,
+                         tvar, need)
+
+
 #: Gauss-Newton evaluations at most per fit, and the relative change of the wheelbase at which
 #: it stops (see :func:`newton_fit`)
 NEWTON_STEPS = 6
 NEWTON_TOL = 1e-4
 
 
-@compiled(f"UniTuple(float64, 4)(float64[:, ::1], float64[:, ::1], float64[:, ::1], float64, "
-           f"float64, float64, float64, boolean, {_POLY}, {_GEO}, {_GRID}, boolean[::1], "
-           f"float64, float64, float64, float64, float64, int64)")
-def newton_fit(base, u, nrm, shift0, start, lo, hi, free_shift, poly, geo, grid, usable, step,
-               edge, cap2, shift_max, tvar, need):
-    """Refine a wheelbase (and, with ``free_shift``, a lateral shift added to ``shift0``) by
-    Gauss-Newton steps on the truncated misfit of :func:`misfit_sums` (minus the expected
-    tangent-noise term ``L^2 tvar``), from ``start``, the wheelbase kept within ``[lo, hi]``
-    and the total shift within ``shift_max``. A step that makes the fit worse is halved back
-    towards the best point. Returns the best (wheelbase, mse, samples used, total shift)
-    seen; mse is inf when fewer than ``need`` samples count."""
+@inline
+def _newton_fit(base, u, nrm, shift0, start, lo, hi, free_shift, poly, geo, grid, usable, step,
+                edge, cap2, shift_max, tvar, need):
     lengths = np.empty(1)
     x0 = start
     x1 = 0.0
@@ -391,6 +390,49 @@ def newton_fit(base, u, nrm, shift0, start, lo, hi, free_shift, poly, geo, grid,
         x0 = n0
         x1 = n1
     return best_len, best_mse, best_used, best_shift
+
+
+@compiled(f"UniTuple(float64, 4)(float64[:, ::1], float64[:, ::1], float64[:, ::1], float64, "
+           f"float64, float64, float64, boolean, {_POLY}, {_GEO}, {_GRID}, boolean[::1], "
+           f"float64, float64, float64, float64, float64, int64)")
+def newton_fit(base, u, nrm, shift0, start, lo, hi, free_shift, poly, geo, grid, usable, step,
+               edge, cap2, shift_max, tvar, need):
+    """Refine a wheelbase (and, with ``free_shift``, a lateral shift added to ``shift0``) by
+    Gauss-Newton steps on the truncated misfit of :func:`misfit_sums` (minus the expected
+    tangent-noise term ``L^2 tvar``), from ``start``, the wheelbase kept within ``[lo, hi]``
+    and the total shift within ``shift_max``. A step that makes the fit worse is halved back
+    towards the best point. Returns the best (wheelbase, mse, samples used, total shift)
+    seen; mse is inf when fewer than ``need`` samples count."""
+    return _newton_fit(base, u, nrm, shift0, start, lo, hi, free_shift, poly, geo, grid, usable,
+                       step, edge, cap2, shift_max, tvar, need)
+
+
+@compiled(f"UniTuple(float64, 4)(float64[:, ::1], float64[:, ::1], float64[:, ::1], "
+          f"float64[:, ::1], float64, float64[::1], {_POLY}, {_GEO}, {_GRID}, boolean[::1], "
+          f"float64, float64, float64, float64, float64, int64, int64)")
+def fit_direction(coarse_base, coarse_tangents, fine_base, fine_tangents, along, lengths, poly,
+                  geo, grid, usable, step, edge, cap2, shift_max, tvar, coarse_need, fine_need):
+    """One hypothesis's wheelbase without a lateral shift, in one call: the rear samples
+    predict one wheelbase ``along`` (+1 or -1) their tangents; the coarse samples place it on
+    the grid ``lengths`` (:func:`best_on_grid`), the fine ones refine it between the grid
+    neighbours (:func:`newton_fit`). Returns (wheelbase, mse, samples used, shift), NaN and
+    inf when no grid wheelbase has enough samples."""
+    coarse_u = along * coarse_tangents
+    coarse_n = np.empty_like(coarse_u)
+    coarse_n[:, 0] = -coarse_u[:, 1]
+    coarse_n[:, 1] = coarse_u[:, 0]
+    j, _mse = _best_on_grid(coarse_base, coarse_u, coarse_n, 0.0, lengths, poly, geo, grid,
+                            usable, step, edge, cap2, tvar, coarse_need)
+    if j < 0:
+        return np.nan, np.inf, 0.0, 0.0
+    k = lengths.shape[0]
+    fine_u = along * fine_tangents
+    fine_n = np.empty_like(fine_u)
+    fine_n[:, 0] = -fine_u[:, 1]
+    fine_n[:, 1] = fine_u[:, 0]
+    return _newton_fit(fine_base, fine_u, fine_n, 0.0, lengths[j], lengths[max(j - 1, 0)],
+                       lengths[min(j + 1, k - 1)], False, poly, geo, grid, usable, step, edge,
+                       cap2, shift_max, tvar, fine_need)
 
 
 #: the numba types of a set of polylines (see :func:`spacing_profiles`)
