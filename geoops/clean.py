@@ -73,12 +73,20 @@ class CleanRut:
 
     def curvature(self) -> tuple[Array, np.ndarray, float]:
         """Curvature across one smoothing window: (signed curvature 1/m, the sample index of
-        each value, its noise standard deviation from the tangent variance)."""
-        half = max(self.window_pts // 2, 1)
-        kappa = windowed_curvature(self.tangents, self.step, half)
-        centres = np.arange(half, half + len(kappa))
-        noise = float(np.sqrt(2.0 * self.tangent_var) / (2 * half * self.step))
-        return kappa, centres, noise
+        each value, its noise standard deviation from the tangent variance). Computed once
+        per rut and kept (the arrays are read-only): every pair a rut is judged in, and its
+        pass record, ask for it."""
+        kept = self.__dict__.get("_curvature")
+        if kept is None:
+            half = max(self.window_pts // 2, 1)
+            kappa = windowed_curvature(self.tangents, self.step, half)
+            centres = np.arange(half, half + len(kappa))
+            noise = float(np.sqrt(2.0 * self.tangent_var) / (2 * half * self.step))
+            kappa.setflags(write=False)
+            centres.setflags(write=False)
+            kept = (kappa, centres, noise)
+            object.__setattr__(self, "_curvature", kept)  # frozen: a cache, not a field
+        return kept
 
 
 #: metres of extra gap a radian of heading change costs when chaining parts: a part that

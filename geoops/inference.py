@@ -141,15 +141,16 @@ def _interp_bool(mask: np.ndarray, s: Array, step: float) -> np.ndarray:
 def _alignment(a: CleanRut, b: CleanRut) -> tuple[float, np.ndarray, Array]:
     """Mean tangent dot product of a's samples against b where they overlap, a's mask of
     samples whose nearest point on b is interior (the overlap), and each sample's distance
-    to b."""
-    d, s = b.index.distance_and_position(a.xy)
-    edge = 2.0 * b.step
-    inside = (s > edge) & (s < b.length - edge) & a.has_data & _interp_bool(b.has_data, s, b.step)
-    if not inside.any():
-        return 0.0, inside, d
-    j = _clipped_index(s[inside] / b.step, 0, len(b.tangents) - 1)
-    dots = np.einsum("ij,ij->i", a.tangents[inside], b.tangents[j])
-    return float(np.mean(dots)), inside, d
+    to b (compiled: :func:`geoops.kernels.alignment`)."""
+    index = b.index
+    if not hasattr(index, "poly"):  # a one-point line: nothing to lie along
+        return 0.0, np.zeros(len(a.xy), dtype=bool), np.full(len(a.xy), np.inf)
+    mean_dot, inside, d = kernels.alignment(
+        np.ascontiguousarray(a.xy), np.ascontiguousarray(a.tangents),
+        np.ascontiguousarray(a.has_data), index.poly, index.geo, index.grid,
+        np.ascontiguousarray(b.tangents), np.ascontiguousarray(b.has_data), float(b.step),
+    )
+    return float(mean_dot), inside, d
 
 
 #: two tracks count as mapped as one line where, over a smoothing window, they stay closer

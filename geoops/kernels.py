@@ -198,6 +198,35 @@ def _landing(px, py, poly, geo, grid, usable, step, edge):
     return valid, d2, sg, t
 
 
+@compiled(f"Tuple((float64, boolean[::1], float64[::1]))(float64[:, ::1], float64[:, ::1], "
+          f"boolean[::1], {_POLY}, {_GEO}, {_GRID}, float64[:, ::1], boolean[::1], float64)")
+def alignment(xy, tangents, has_data, poly, geo, grid, other_tangents, other_has_data,
+              other_step):
+    """How one track (points ``xy``, unit ``tangents``, ``has_data`` per sample) lies along
+    another (the polyline of ``poly``/``geo``/``grid``, its samples ``other_step`` apart):
+    the mean dot product of the tangents where the track overlaps the other, the mask of that
+    overlap (samples with data whose nearest point on the other lies more than two samples
+    from either end, on a sample with data) and every sample's distance to the other."""
+    m = xy.shape[0]
+    dist = np.empty(m)
+    inside = np.zeros(m, dtype=np.bool_)
+    last_t = other_tangents.shape[0] - 1
+    total = 0.0
+    count = 0
+    for q in range(m):
+        valid, d2, sg, t = _landing(xy[q, 0], xy[q, 1], poly, geo, grid, other_has_data,
+                                    other_step, 2.0 * other_step)
+        dist[q] = np.sqrt(d2)
+        if not (valid and has_data[q]):
+            continue
+        inside[q] = True
+        s = poly[5][sg] + t * poly[6][sg]
+        j = min(max(int(np.rint(s / other_step)), 0), last_t)
+        total += tangents[q, 0] * other_tangents[j, 0] + tangents[q, 1] * other_tangents[j, 1]
+        count += 1
+    return (total / count if count else 0.0), inside, dist
+
+
 #: what :func:`misfit_sums` accumulates per wheelbase: plain, with the Gauss-Newton sums, or
 #: with the best lateral shift profiled out
 PLAIN, NEWTON, PROFILED = 0, 1, 2

@@ -200,3 +200,34 @@ def test_the_cut_grid_search_finds_the_full_grids_best(seed: int) -> None:
         assert obj.best_on_grid(_GRID) == expected
         checked += expected >= 0
     assert checked >= 5
+
+
+@pytest.mark.parametrize("seed", range(4))
+def test_alignment_matches_a_direct_measurement(seed: int) -> None:
+    """The compiled overlap measure against shapely (GEOS distance and projection along the
+    line) and numpy: each sample's distance to the other track, the overlap (nearest point
+    more than two samples from either end, both samples with data) and the mean tangent dot
+    product over it."""
+    import shapely
+
+    from geoops.inference import _alignment
+
+    sim, rear_key, front_key, _ = _pair_case(seed)
+    rng = np.random.default_rng(seed)
+    lines = mapped_lines(sim, NOISE, SPACING, rng, which=[rear_key, front_key])
+    a, b = clean_rut([lines[rear_key]]), clean_rut([lines[front_key][::-1]])
+    mean_dot, inside, d = _alignment(a, b)
+    line, pts = shapely.LineString(b.xy), shapely.points(a.xy)
+    # source: shapely 2.x distance and line_locate_point (GEOS)
+    np.testing.assert_allclose(d, shapely.distance(pts, line), atol=1e-9)
+    s = shapely.line_locate_point(line, pts)
+    at = np.clip(np.rint(s / b.step).astype(int), 0, len(b.xy) - 1)
+    edge = 2.0 * b.step
+    expected = (s > edge) & (s < line.length - edge) & a.has_data & b.has_data[at]
+    near_edge = (np.abs(s - edge) < 1e-9) | (np.abs(s - (line.length - edge)) < 1e-9)
+    assert np.array_equal(inside[~near_edge], expected[~near_edge])
+    dots = np.einsum("ij,ij->i", a.tangents[inside], b.tangents[at[inside]])
+    assert mean_dot == pytest.approx(float(np.mean(dots)), abs=1e-12)
+    # the two lines' vertex orders run the same way or opposite: the mean says which
+    chord = float(np.dot(a.xy[-1] - a.xy[0], b.xy[-1] - b.xy[0]))
+    assert abs(mean_dot) > 0.9 and np.sign(mean_dot) == np.sign(chord)
