@@ -57,6 +57,7 @@ def main() -> int:
         return subprocess.call([sys.executable, "-m", "geoops.kernel_build"], env=env)
     here = kernel_loader.HERE
     start = time.perf_counter()
+    digest = kernel_loader.source_digest()  # of the sources as the build reads them
     try:
         with tempfile.TemporaryDirectory(dir=here) as tmp:
             built = _build(Path(tmp))
@@ -74,7 +75,7 @@ def main() -> int:
         )
         return 0
     # the stamp last: a build interrupted before this point is never used
-    kernel_loader.STAMP.write_text(kernel_loader.source_digest() + "\n")
+    kernel_loader.STAMP.write_text(digest + "\n")
     seconds = time.perf_counter() - start
     print(f"rutwise: kernels built ahead of time in {seconds:.0f} s: {here / built.name}")
     return 0
