@@ -272,20 +272,6 @@ class _Objective:
         """Mean truncated squared miss and samples used, per wheelbase."""
         return self._mse(self._sums(lengths, kernels.PLAIN), lengths)
 
-    def best_on_grid(self, lengths: Array) -> int:
-        """Index of the wheelbase in ``lengths`` whose :meth:`many` misfit is least (the
-        first of equals; -1 when none is finite), found without finishing the sums of
-        wheelbases that cannot win (:func:`geoops.kernels.best_on_grid`)."""
-        index = self.target.index
-        if not hasattr(index, "poly"):  # a one-point target: nothing can land on it
-            return -1
-        best, _ = kernels.best_on_grid(
-            self.base, self.u, self.n, float(self.shift), np.ascontiguousarray(lengths, float),
-            index.poly, index.geo, index.grid, self.usable, float(self.target.step),
-            float(self.edge), float(self.cap2), float(self.tvar), int(self.need),
-        )
-        return int(best)
-
 
 def _subsample(mask: np.ndarray, most: int) -> np.ndarray:
     idx = np.flatnonzero(mask)

@@ -185,8 +185,8 @@ def closest(pts, poly, geo, grid, limit):
 def _landing(px, py, poly, geo, grid, usable, step, edge):
     """Where a predicted front point lands on the target polyline: whether it counts (its
     nearest point more than ``edge`` from either end, on a sample marked ``usable``, the
-    target's samples ``step`` apart), the squared distance, and the segment and fraction
-    along it of the nearest point."""
+    target's samples ``step`` apart), the squared distance, the segment and fraction along it
+    of the nearest point, and its arc-length position."""
     x, y, abx, aby, inv_den, s_cum, seg_len = poly
     x0, y0, cell, half_longest = geo
     nx, ny, start, items, nx2, ny2, start2, items2 = grid
@@ -195,7 +195,7 @@ def _landing(px, py, poly, geo, grid, usable, step, edge):
     s = s_cum[sg] + t * seg_len[sg]
     at = min(max(int(np.rint(s / step)), 0), usable.shape[0] - 1)
     valid = s > edge and s < s_cum[-1] - edge and usable[at]
-    return valid, d2, sg, t
+    return valid, d2, sg, t, s
 
 
 @compiled(f"Tuple((float64, boolean[::1], float64[::1]))(float64[:, ::1], float64[:, ::1], "
@@ -214,13 +214,12 @@ def alignment(xy, tangents, has_data, poly, geo, grid, other_tangents, other_has
     total = 0.0
     count = 0
     for q in range(m):
-        valid, d2, sg, t = _landing(xy[q, 0], xy[q, 1], poly, geo, grid, other_has_data,
-                                    other_step, 2.0 * other_step)
+        valid, d2, _seg, _frac, s = _landing(xy[q, 0], xy[q, 1], poly, geo, grid,
+                                             other_has_data, other_step, 2.0 * other_step)
         dist[q] = np.sqrt(d2)
         if not (valid and has_data[q]):
             continue
         inside[q] = True
-        s = poly[5][sg] + t * poly[6][sg]
         j = min(max(int(np.rint(s / other_step)), 0), last_t)
         total += tangents[q, 0] * other_tangents[j, 0] + tangents[q, 1] * other_tangents[j, 1]
         count += 1
@@ -263,7 +262,7 @@ def misfit_sums(base, u, nrm, shift, lengths, mode, poly, geo, grid, usable, ste
         for i in range(m):
             px = base[i, 0] + shift * nrm[i, 0] + L * u[i, 0]
             py = base[i, 1] + shift * nrm[i, 1] + L * u[i, 1]
-            valid, d2, sg, t = _landing(px, py, poly, geo, grid, usable, step, edge)
+            valid, d2, sg, t, _at = _landing(px, py, poly, geo, grid, usable, step, edge)
             ok[i] = valid
             if not valid:
                 continue
@@ -304,6 +303,17 @@ def misfit_sums(base, u, nrm, shift, lengths, mode, poly, geo, grid, usable, ste
 @inline
 def _best_on_grid(base, u, nrm, shift, lengths, poly, geo, grid, usable, step, edge, cap2, tvar,
                   need):
+    """The wheelbase of ``lengths`` with the least misfit: :func:`misfit_sums`' PLAIN mean
+    truncated squared miss less the tangent-noise term ``L^2 tvar``, infinite where fewer
+    than ``need`` predictions count. Returns its index (-1 when none is finite; the first of
+    equals) and the misfit per wheelbase, where a wheelbase that cannot be the best is left
+    infinite, unfinished.
+
+    That cut is exact: after some predictions, the squared misses summed so far over the most
+    predictions that can count (all ``m``), less ``L^2 tvar``, is a lower bound of the
+    wheelbase's misfit; once it exceeds the best misfit found, the rest is not needed. A
+    wrong wheelbase sends predictions off the target, each truncated miss a large share of a
+    good fit's whole sum, so most are cut after a few predictions."""
     m = base.shape[0]
     k = lengths.shape[0]
     mse = np.full(k, np.inf)
@@ -318,7 +328,7 @@ def _best_on_grid(base, u, nrm, shift, lengths, poly, geo, grid, usable, step, e
         for i in range(m):
             px = base[i, 0] + shift * nrm[i, 0] + L * u[i, 0]
             py = base[i, 1] + shift * nrm[i, 1] + L * u[i, 1]
-            valid, d2, _seg, _frac = _landing(px, py, poly, geo, grid, usable, step, edge)
+            valid, d2, _seg, _frac, _at = _landing(px, py, poly, geo, grid, usable, step, edge)
             if not valid:
                 continue
             used += 1
@@ -333,26 +343,6 @@ def _best_on_grid(base, u, nrm, shift, lengths, poly, geo, grid, usable, step, e
             best = mse[j]
             best_j = j
     return best_j, mse
-
-
-@compiled(f"Tuple((int64, float64[::1]))(float64[:, ::1], float64[:, ::1], float64[:, ::1], "
-          f"float64, float64[::1], {_POLY}, {_GEO}, {_GRID}, boolean[::1], float64, float64, "
-          f"float64, float64, int64)")
-def best_on_grid(base, u, nrm, shift, lengths, poly, geo, grid, usable, step, edge, cap2, tvar,
-                 need):
-    """The wheelbase of ``lengths`` with the least misfit: :func:`misfit_sums`' PLAIN mean
-    truncated squared miss less the tangent-noise term ``L^2 tvar``, infinite where fewer
-    than ``need`` predictions count. Returns its index (-1 when none is finite; the first of
-    equals) and the misfit per wheelbase, where a wheelbase that cannot be the best is left
-    infinite, unfinished.
-
-    That cut is exact: after some predictions, the squared misses summed so far over the most
-    predictions that can count (all ``m``), less ``L^2 tvar``, is a lower bound of the
-    wheelbase's misfit; once it exceeds the best misfit found, the rest is not needed. A
-    wrong wheelbase sends predictions off the target, each truncated miss a large share of a
-    good fit's whole sum, so most are cut after a few predictions."""
-    return _best_on_grid(base, u, nrm, shift, lengths, poly, geo, grid, usable, step, edge, cap2,
-                         tvar, need)
 
 
 #: Gauss-Newton evaluations at most per fit, and the relative change of the wheelbase at which
@@ -443,7 +433,7 @@ def fit_direction(coarse_base, coarse_tangents, fine_base, fine_tangents, along,
                   geo, grid, usable, step, edge, cap2, shift_max, tvar, coarse_need, fine_need):
     """One hypothesis's wheelbase without a lateral shift, in one call: the rear samples
     predict one wheelbase ``along`` (+1 or -1) their tangents; the coarse samples place it on
-    the grid ``lengths`` (:func:`best_on_grid`), the fine ones refine it between the grid
+    the grid ``lengths`` (:func:`_best_on_grid`), the fine ones refine it between the grid
     neighbours (:func:`newton_fit`). Returns (wheelbase, mse, samples used, shift), NaN and
     inf when no grid wheelbase has enough samples."""
     coarse_u = along * coarse_tangents

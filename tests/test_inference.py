@@ -173,32 +173,39 @@ def test_swapping_the_two_tracks_keeps_the_verdict():
 
 @pytest.mark.parametrize("seed", range(6))
 def test_the_cut_grid_search_finds_the_full_grids_best(seed: int) -> None:
-    """kernels.best_on_grid stops summing a wheelbase once it cannot win; its choice must be
-    the full evaluation's argmin (first of equals) for every hypothesis, shift and noise
-    term, including targets so far off that every prediction is truncated (all equal)."""
-    from geoops.inference import _GRID, _Objective, _subsample
+    """A hypothesis's plain fit (kernels.fit_direction) stops summing a grid wheelbase once it
+    cannot win; its result must be the one from the full grid's argmin (first of equals)
+    refined by the same Gauss-Newton steps, for both directions and noise terms, including
+    targets so far off that every prediction is truncated (all equal)."""
+    import dataclasses
+
+    from geoops.inference import _GRID, FINE_SAMPLES, _Hypothesis, _newton, _subsample
 
     sim, rear_key, front_key, _ = _pair_case(seed)
     rng = np.random.default_rng(seed)
     lines = mapped_lines(sim, NOISE, SPACING, rng, which=[rear_key, front_key])
     rear, front = clean_rut([lines[rear_key]]), clean_rut([lines[front_key]])
     far = clean_rut([lines[front_key] + [0.0, 40.0]])
-    idx = _subsample(np.ones(len(rear.xy), dtype=bool), 32)
+    every = np.ones(len(rear.xy), dtype=bool)
+    samples = [_subsample(every, 32), _subsample(every, FINE_SAMPLES)]
+    arrays = [(np.ascontiguousarray(rear.xy[i]), np.ascontiguousarray(rear.tangents[i]))
+              for i in samples]
     checked = 0
-    for target, along, shift, tvar in [
-        (front, 1, 0.0, None), (front, -1, 0.0, None), (front, 1, 0.3, None),
-        (front, 1, 0.0, 0.0), (front, -1, 0.0, 0.05), (far, 1, 0.0, 0.0), (far, -1, 0.0, None),
+    for target, along, tvar in [
+        (front, 1, None), (front, -1, None), (front, 1, 0.0), (front, -1, 0.05),
+        (far, 1, 0.0), (far, -1, None),
     ]:
-        obj = _Objective(rear, target, along, idx, 0.5)
-        obj.shift = shift
-        if tvar is not None:
-            obj.tvar = tvar
-        mse, _ = obj.many(_GRID)
-        expected = int(np.argmin(np.where(np.isnan(mse), np.inf, mse)))
-        if not np.isfinite(mse).any():
-            expected = -1
-        assert obj.best_on_grid(_GRID) == expected
-        checked += expected >= 0
+        track = rear if tvar is None else dataclasses.replace(rear, tangent_var=tvar)
+        hyp = _Hypothesis(track, target, along, samples, 0.5, target.has_data)
+        mse, _ = hyp.coarse.many(_GRID)
+        if np.isfinite(mse).any():
+            i = int(np.argmin(np.where(np.isnan(mse), np.inf, mse)))
+            bracket = (float(_GRID[max(i - 1, 0)]), float(_GRID[min(i + 1, len(_GRID) - 1)]))
+            expected = _newton(hyp.fine, float(_GRID[i]), bracket, 0.0)
+            checked += 1
+        else:
+            expected = (float("nan"), float("inf"), 0, 0.0)
+        np.testing.assert_array_equal(hyp.fit(arrays), expected)
     assert checked >= 5
 
 
