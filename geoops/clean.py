@@ -15,6 +15,7 @@ import numpy as np
 
 from . import kernels_clean
 from .curves import (
+    REPEAT_TOL_M,
     Array,
     NearestOnPolyline,
     arc_length,
@@ -180,10 +181,6 @@ def chain_parts(parts: list[Array]) -> tuple[Array, Array]:
             g[-1] = True
         gap_after.append(g)
     return np.concatenate(chain), np.concatenate(gap_after)
-
-
-#: vertices closer than this to the one before them are repeats, metres
-REPEAT_TOL_M = 1e-9
 
 
 def drop_spikes(xy: Array, passes: int = 2) -> Array:

@@ -46,7 +46,11 @@ def as_linestrings(arrays: list[Array]) -> np.ndarray:
     return np.asarray(shapely.linestrings(np.concatenate(arrays), indices=idx))
 
 
-def drop_repeats(xy: Array, tol: float = 1e-9) -> Array:
+#: vertices closer than this to the one before them are repeats, metres
+REPEAT_TOL_M = 1e-9
+
+
+def drop_repeats(xy: Array, tol: float = REPEAT_TOL_M) -> Array:
     """Remove consecutive vertices closer than ``tol`` to the previous kept vertex's neighbour.
 
     Only exact or near-exact repeats are removed (``tol`` in metres); shape is otherwise kept.
