@@ -92,7 +92,34 @@ def _positive_int(text: str) -> int:
     return value
 
 
+#: modules pyogrio imports for its optional dataframe functions only
+_DATAFRAME_MODULES = ("geopandas", "pandas")
+
+
+def _import_pyogrio_without_dataframes() -> None:
+    """Import pyogrio without the geopandas and pandas it loads for its dataframe functions.
+
+    pyogrio's package imports both whenever they are installed, a quarter of a second of
+    every start; rutwise reads and writes through ``pyogrio.raw`` (numpy arrays) only. While
+    pyogrio is imported here those modules are marked as missing, then unmarked: they stay
+    importable for anything else, but pyogrio's own dataframe functions are unavailable in
+    this process. Only the ``analyze`` command does this (a library user may need both);
+    nothing when pyogrio is imported already."""
+    if "pyogrio" in sys.modules:
+        return
+    hidden = [name for name in _DATAFRAME_MODULES if name not in sys.modules]
+    for name in hidden:
+        sys.modules[name] = None  # type: ignore[assignment]  # import raises ImportError
+    try:
+        import pyogrio  # noqa: F401
+    finally:
+        for name in hidden:
+            if sys.modules.get(name, ...) is None:
+                del sys.modules[name]
+
+
 def _cmd_analyze(args: argparse.Namespace) -> int:
+    _import_pyogrio_without_dataframes()
     from .pipeline import AnalyzeOptions, analyze_file, write_result
 
     options = AnalyzeOptions.from_args(args)

@@ -19,6 +19,7 @@ from __future__ import annotations
 
 import math
 from dataclasses import dataclass, field
+from typing import Any
 
 import numpy as np
 
@@ -332,16 +333,20 @@ def score_output(scene: Scene, path: str) -> SceneScore:
     Input features are named in ``source_fids`` by their GeoPackage fid, which
     :func:`write_scene` makes the line's position plus one; a rut record lists every piece it
     was made of."""
-    import pyogrio
     import shapely
+    from pyogrio.raw import read as raw_read
 
-    ruts = pyogrio.read_dataframe(path, layer="ruts")
-    passes = pyogrio.read_dataframe(path, layer="passes")
+    def columns(layer: str) -> tuple[dict[str, Any], Any]:
+        meta, _, wkb, values = raw_read(path, layer=layer)
+        return dict(zip(meta["fields"], values, strict=True)), wkb
+
+    ruts, rut_wkb = columns("ruts")
+    passes, _ = columns("passes")
     by_pass: dict[int, set[int]] = {}
     pieces: list[tuple[list[int], FloatArray]] = []
-    for fids, pid, geom in zip(ruts["source_fids"], ruts["pass_id"], ruts.geometry, strict=True):
+    for fids, pid, wkb in zip(ruts["source_fids"], ruts["pass_id"], rut_wkb, strict=True):
         lines = [int(f) - 1 for f in str(fids).split(",")]
-        pieces.append((lines, shapely.get_coordinates(geom)))
+        pieces.append((lines, shapely.get_coordinates(shapely.from_wkb(wkb))))
         if pid is not None and not (isinstance(pid, float) and math.isnan(pid)):
             by_pass.setdefault(int(pid), set()).update(lines)
     found = {frozenset(v) for v in by_pass.values()}

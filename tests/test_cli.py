@@ -279,3 +279,24 @@ def test_installed_console_script(tmp_path: Path) -> None:
     assert "Traceback" not in proc.stderr
     assert "decided" in proc.stdout and f"written: {out}" in proc.stdout
     assert pyogrio.read_info(out, layer="passes")["features"] == 1
+
+
+def test_analyze_leaves_pandas_and_geopandas_importable(tmp_path: Path) -> None:
+    # the command imports pyogrio without its dataframe modules (start-up time); they must
+    # stay importable, and usable, for anything else in the process
+    path = two_track_file(tmp_path, ids=[7, 8])
+    script = (
+        "import sys\nfrom geoops import cli\n"
+        "assert cli.main(['analyze', sys.argv[1], '-q', '-o', sys.argv[2]]) == 0\n"
+        "print('pandas' in sys.modules, 'geopandas' in sys.modules)\n"
+        "import geopandas\n"
+        "print(len(geopandas.GeoDataFrame({'a': [1, 2]}, geometry=geopandas.points_from_xy("
+        "[0, 1], [0, 1]))))\n"
+    )
+    proc = subprocess.run(
+        [sys.executable, "-c", script, str(path), str(tmp_path / "out.gpkg")],
+        capture_output=True, text=True, timeout=120, check=False,
+    )
+    assert proc.returncode == 0, proc.stderr
+    assert proc.stdout.split() == ["False", "False", "2"]
+    assert pyogrio.read_info(tmp_path / "out.gpkg", layer="passes")["features"] == 1

@@ -109,12 +109,13 @@ def test_the_digest_covers_every_kernel_source() -> None:
 @pytest.mark.skipif(shutil.which("cc") is None, reason="no C compiler: no ahead-of-time build")
 def test_an_analysis_loads_neither_numba_nor_scipy(tmp_path: Path) -> None:
     # start-up is a large share of a small job: numba (0.6 s), scipy.spatial (0.2 s), scipy's
-    # LAPACK (0.1 s) and networkx (0.2 s) must stay out of an ordinary analysis
+    # LAPACK (0.1 s), networkx (0.2 s) and the pandas and geopandas that pyogrio would load
+    # for its dataframe functions (0.25 s) must stay out of an ordinary analysis
     script = (
         "import sys\nfrom geoops import cli\n"
         "try:\n    cli.main(sys.argv[1:])\nexcept SystemExit:\n    pass\n"
         "print(sorted({m.split('.')[0] for m in sys.modules} & "
-        "{'numba', 'scipy', 'networkx', 'rasterio', 'skimage'}))"
+        "{'numba', 'scipy', 'networkx', 'rasterio', 'skimage', 'pandas', 'geopandas'}))"
     )
     out = subprocess.run(
         [sys.executable, "-c", script, "analyze", "sample_layers/harrowmere_analyst.gpkg",
