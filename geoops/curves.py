@@ -192,7 +192,7 @@ def windowed_curvature(tangents: Array, step: float, half: int) -> Array:
 class NearestOnPolyline:
     """Exact nearest-point queries against one polyline, for many query points at once.
 
-    The vertices are bucketed in a uniform grid once; each query scans the rings of cells
+    The segments are bucketed in a uniform grid once; each query scans the rings of cells
     around it until no unseen segment can be closer (:mod:`geoops.kernels`), so a point by one
     branch of a loop or crossing is never measured against the other.
 
@@ -331,6 +331,7 @@ def polyline_set(indexes: list[NearestOnPolyline]) -> tuple[Any, ...]:
             np.array([g[level + 1] for g in grids], dtype=np.int64),
             starts([len(g[level + 2]) for g in grids]),
             cat([g[level + 2] for g in grids], np.int64),
+            starts([len(g[level + 3]) for g in grids]),
             cat([g[level + 3] for g in grids], np.int64),
         ]
     return offsets, arrays, geos, tuple(grid_arrays)

@@ -6,11 +6,12 @@ nearest *vertex* at about 0.2 microseconds a point plus numpy's per-call cost; t
 answers with the exact nearest point on the polyline, from a uniform grid of buckets over the
 line's vertices, in a fraction of that and with no per-call array temporaries.
 
-Exactness (the grid search): after the rings of cells up to ``r`` around the query's cell have
-been scanned, every vertex within ``r * cell`` of the query has been seen. The closest point of
-any segment lies within half the segment's length of one of its two end vertices, so once
-``r * cell`` reaches the best distance found plus half the longest segment, no unseen segment
-can be closer. ``tests/test_curves.py`` checks the result against GEOS (shapely) distances and
+Exactness (the grid search): each segment is listed in every cell its bounding box overlaps,
+so after the rings of cells up to ``r`` around the query's cell have been scanned, every
+segment that enters that square has been measured; one that was not lies wholly outside it,
+at least as far from the query as the square's nearest side. Once that side is farther than
+the best distance found, no unseen segment can be closer (a near query is settled in its own
+cell). ``tests/test_curves.py`` checks the result against GEOS (shapely) distances and
 positions, on lines that loop and cross themselves.
 
 How the kernels become machine code (built ahead of time at set-up, or by numba at import)
@@ -28,11 +29,18 @@ from .kernel_loader import compiled, inline
 CELLS_PER_VERTEX = 16
 
 
+@inline
+def _cell_span(a, b, origin, cell):
+    """First and last cell index, along one axis, of the span between ``a`` and ``b``."""
+    return int((min(a, b) - origin) / cell), int((max(a, b) - origin) / cell)
+
+
 @compiled("Tuple((int64, int64, int64[::1], int64[::1]))(float64[::1], float64[::1], "
            "float64, float64, float64)")
 def build_grid(x, y, x0, y0, cell):
-    """Bucket the vertices: grid size (nx, ny), CSR ``start`` offsets per cell and the vertex
-    indices in cell order."""
+    """Bucket the segments of the polyline of vertices ``x, y`` (two or more; ``x0, y0`` their
+    least coordinates): grid size (nx, ny), CSR ``start`` offsets per cell and, in cell
+    order, the index of each segment in every cell its bounding box overlaps."""
     n = len(x)
     nx = 1
     ny = 1
@@ -44,18 +52,23 @@ def build_grid(x, y, x0, y0, cell):
         if cy + 1 > ny:
             ny = cy + 1
     counts = np.zeros(nx * ny + 1, dtype=np.int64)
-    cells = np.empty(n, dtype=np.int64)
-    for i in range(n):
-        c = int((y[i] - y0) / cell) * nx + int((x[i] - x0) / cell)
-        cells[i] = c
-        counts[c + 1] += 1
+    for sg in range(n - 1):
+        ax, bx = _cell_span(x[sg], x[sg + 1], x0, cell)
+        ay, by = _cell_span(y[sg], y[sg + 1], y0, cell)
+        for cy in range(ay, by + 1):
+            for cx in range(ax, bx + 1):
+                counts[cy * nx + cx + 1] += 1
     start = np.cumsum(counts)
     fill = start[:-1].copy()
-    items = np.empty(n, dtype=np.int64)
-    for i in range(n):
-        c = cells[i]
-        items[fill[c]] = i
-        fill[c] += 1
+    items = np.empty(start[-1], dtype=np.int64)
+    for sg in range(n - 1):
+        ax, bx = _cell_span(x[sg], x[sg + 1], x0, cell)
+        ay, by = _cell_span(y[sg], y[sg + 1], y0, cell)
+        for cy in range(ay, by + 1):
+            for cx in range(ax, bx + 1):
+                c = cy * nx + cx
+                items[fill[c]] = sg
+                fill[c] += 1
     return nx, ny, start, items
 
 
@@ -63,19 +76,19 @@ def build_grid(x, y, x0, y0, cell):
 FINE_RINGS = 2
 #: coarse cell, in fine cells
 COARSE = 8
+#: how much farther (relative, and in metres) than the best distance found the scanned square's
+#: nearest side must lie before the search stops: a margin for the rounding of cell positions
+STOP_MARGIN_REL = 1e-9
+STOP_MARGIN_M = 1e-9
 
 
 @inline
-def _search(px, py, x, y, abx, aby, inv_den, x0, y0, size, half_longest, gnx, gny, st, it,
-            most_rings, limit, best, best_seg, best_t):  # noqa: E501
-    """Scan rings of one grid's cells around ``(px, py)``, each vertex bucketed there
-    projecting the query onto its two segments, until no unseen segment can be closer (or
-    none can be within ``limit``, or ``most_rings`` rings beyond the first have been
-    scanned). Returns the best (squared distance, segment, fraction) and whether it is
-    final."""
-    nseg = len(abx)
-    # a vertex farther than this cannot hold a closer point (half a segment beyond the best)
-    bound2 = (min(np.sqrt(best), limit) + half_longest) ** 2
+def _search(px, py, x, y, abx, aby, inv_den, x0, y0, size, gnx, gny, st, it, most_rings, limit,
+            best, best_seg, best_t):
+    """Scan rings of one grid's cells around ``(px, py)``, projecting the query onto each
+    segment listed there, until no unseen segment can be closer (or none can be within
+    ``limit``, or ``most_rings`` rings beyond the first have been scanned). Returns the best
+    (squared distance, segment, fraction) and whether it is final."""
     fx = (px - x0) / size
     fy = (py - y0) / size
     # far off the grid (or not a number): clamped so that the cell index stays an int
@@ -95,22 +108,16 @@ def _search(px, py, x, y, abx, aby, inv_den, x0, y0, size, half_longest, gnx, gn
                 if gx >= 0:
                     c = gy * gnx + gx
                     for k in range(st[c], st[c + 1]):
-                        v = it[k]
-                        vx = px - x[v]
-                        vy = py - y[v]
-                        if vx * vx + vy * vy > bound2:
-                            continue
-                        for sg in range(max(v - 1, 0), min(v + 1, nseg)):
-                            t = ((px - x[sg]) * abx[sg] + (py - y[sg]) * aby[sg]) * inv_den[sg]
-                            t = min(max(t, 0.0), 1.0)
-                            dx = px - x[sg] - t * abx[sg]
-                            dy = py - y[sg] - t * aby[sg]
-                            d2 = dx * dx + dy * dy
-                            if d2 < best or (d2 == best and sg < best_seg):
-                                best = d2
-                                best_seg = sg
-                                best_t = t
-                                bound2 = (np.sqrt(best) + half_longest) ** 2
+                        sg = it[k]
+                        t = ((px - x[sg]) * abx[sg] + (py - y[sg]) * aby[sg]) * inv_den[sg]
+                        t = min(max(t, 0.0), 1.0)
+                        dx = px - x[sg] - t * abx[sg]
+                        dy = py - y[sg] - t * aby[sg]
+                        d2 = dx * dx + dy * dy
+                        if d2 < best or (d2 == best and sg < best_seg):
+                            best = d2
+                            best_seg = sg
+                            best_t = t
                 # edge rows: every cell; inner rows: the ring's two side cells
                 if edge_row or r == 0:
                     gx += 1
@@ -123,24 +130,24 @@ def _search(px, py, x, y, abx, aby, inv_den, x0, y0, size, half_longest, gnx, gn
         if best < np.inf or limit < np.inf:
             # every point within this distance of the query lies in the rings scanned
             reach = size * min(fx - (cx - r), cx + r + 1 - fx, fy - (cy - r), cy + r + 1 - fy)
-            if reach >= min(np.sqrt(best), limit) + half_longest:
+            if reach > min(np.sqrt(best), limit) * (1.0 + STOP_MARGIN_REL) + STOP_MARGIN_M:
                 return best, best_seg, best_t, True
         r += 1
     return best, best_seg, best_t, False
 
 
 @inline
-def _nearest(px, py, x, y, abx, aby, inv_den, x0, y0, cell, half_longest, nx, ny, start, items,
-             nx2, ny2, start2, items2, limit):  # noqa: E501
+def _nearest(px, py, x, y, abx, aby, inv_den, x0, y0, cell, nx, ny, start, items, nx2, ny2,
+             start2, items2, limit):
     """Squared distance, segment and fraction along it of the point of the polyline nearest to
     ``(px, py)`` (see :func:`closest`); inf (segment 0) when nothing lies within ``limit``."""
     best, best_seg, best_t, done = _search(
-        px, py, x, y, abx, aby, inv_den, x0, y0, cell, half_longest, nx, ny, start, items,
-        FINE_RINGS, limit, np.inf, 0, 0.0)
+        px, py, x, y, abx, aby, inv_den, x0, y0, cell, nx, ny, start, items, FINE_RINGS, limit,
+        np.inf, 0, 0.0)
     if not done:
         best, best_seg, best_t, done = _search(
-            px, py, x, y, abx, aby, inv_den, x0, y0, cell * COARSE, half_longest, nx2, ny2,
-            start2, items2, 1 << 40, limit, best, best_seg, best_t)
+            px, py, x, y, abx, aby, inv_den, x0, y0, cell * COARSE, nx2, ny2, start2, items2,
+            1 << 40, limit, best, best_seg, best_t)
     if best > limit * limit:
         return np.inf, 0, 0.0
     return best, best_seg, best_t
@@ -148,7 +155,7 @@ def _nearest(px, py, x, y, abx, aby, inv_den, x0, y0, cell, half_longest, nx, ny
 
 #: the numba types of a polyline's arrays and of its two bucket grids, as passed to the kernels
 _POLY = "UniTuple(float64[::1], 7)"
-_GEO = "UniTuple(float64, 4)"
+_GEO = "UniTuple(float64, 3)"
 _GRID = "Tuple((int64, int64, int64[::1], int64[::1], int64, int64, int64[::1], int64[::1]))"
 
 
@@ -162,13 +169,13 @@ def closest(pts, poly, geo, grid, limit):
 
     ``poly`` holds the ``n`` vertices ``x, y``, the ``n - 1`` segments' vectors ``abx, aby``
     and inverse squared lengths (0 for a zero-length segment), the vertices' arc length and
-    the segments' lengths; ``geo`` the grid origin ``x0, y0``, the fine cell and half the
-    longest segment. The vertices are bucketed twice from the same origin (``grid``): in fine
-    cells and in cells :data:`COARSE` times larger; a query still unresolved after
+    the segments' lengths; ``geo`` the grid origin ``x0, y0`` and the fine cell. The segments
+    are bucketed twice from the same origin (``grid``, see :func:`build_grid`): in fine cells
+    and in cells :data:`COARSE` times larger; a query still unresolved after
     :data:`FINE_RINGS` rings of fine cells (far from the line) continues on the coarse grid,
     where fewer, fuller cells cover the same distance."""
     x, y, abx, aby, inv_den, _arc, _lengths = poly
-    x0, y0, cell, half_longest = geo
+    x0, y0, cell = geo
     nx, ny, start, items, nx2, ny2, start2, items2 = grid
     m = pts.shape[0]
     out_d2 = np.empty(m)
@@ -176,8 +183,8 @@ def closest(pts, poly, geo, grid, limit):
     out_t = np.empty(m)
     for q in range(m):
         out_d2[q], out_seg[q], out_t[q] = _nearest(
-            pts[q, 0], pts[q, 1], x, y, abx, aby, inv_den, x0, y0, cell, half_longest,
-            nx, ny, start, items, nx2, ny2, start2, items2, limit)
+            pts[q, 0], pts[q, 1], x, y, abx, aby, inv_den, x0, y0, cell, nx, ny, start, items,
+            nx2, ny2, start2, items2, limit)
     return out_d2, out_seg, out_t
 
 
@@ -188,10 +195,10 @@ def _landing(px, py, poly, geo, grid, usable, step, edge):
     target's samples ``step`` apart), the squared distance, the segment and fraction along it
     of the nearest point, and its arc-length position."""
     x, y, abx, aby, inv_den, s_cum, seg_len = poly
-    x0, y0, cell, half_longest = geo
+    x0, y0, cell = geo
     nx, ny, start, items, nx2, ny2, start2, items2 = grid
-    d2, sg, t = _nearest(px, py, x, y, abx, aby, inv_den, x0, y0, cell, half_longest,
-                         nx, ny, start, items, nx2, ny2, start2, items2, np.inf)
+    d2, sg, t = _nearest(px, py, x, y, abx, aby, inv_den, x0, y0, cell, nx, ny, start, items,
+                         nx2, ny2, start2, items2, np.inf)
     s = s_cum[sg] + t * seg_len[sg]
     at = min(max(int(np.rint(s / step)), 0), usable.shape[0] - 1)
     valid = s > edge and s < s_cum[-1] - edge and usable[at]
@@ -456,7 +463,7 @@ def fit_direction(coarse_base, coarse_tangents, fine_base, fine_tangents, along,
 
 #: the numba types of a set of polylines (see :func:`spacing_profiles`)
 _SET = ("UniTuple(int64[::1], 2), UniTuple(float64[::1], 5), float64[:, ::1], "
-        "UniTuple(int64[::1], 10)")
+        "UniTuple(int64[::1], 12)")
 
 
 @compiled(f"UniTuple(float64[::1], 2)(int64[::1], int64[::1], {_SET}, int64, int64, float64, "
@@ -469,13 +476,13 @@ def spacing_profiles(first, second, offsets, arrays, geos, grids, glance, sample
     Every ``len // glance``-th vertex is looked at first; when none of those is within reach
     the pair gets (0, inf) without the full profile over every ``len // samples``-th vertex.
     The set (``geoops.curves.polyline_set``): ``offsets`` = (vertex starts, segment starts),
-    ``arrays`` = (x, y, abx, aby, inv_den) concatenated, ``geos`` one row of (x0, y0, cell,
-    half_longest) per line, ``grids`` = (nx, ny, cell-array starts, fine cell starts, fine
-    bucketed vertices, nx2, ny2, coarse cell-array starts, coarse cell starts, coarse bucketed
-    vertices); the bucketed vertex indices are each line's own and share the vertex starts."""
+    ``arrays`` = (x, y, abx, aby, inv_den) concatenated, ``geos`` one row of (x0, y0, cell)
+    per line, ``grids`` = (nx, ny, cell-array starts, fine cell starts, bucket-array starts,
+    fine buckets, and the same six for the coarse grid); the bucketed segment indices are
+    each line's own."""
     vstart, sstart = offsets
     xs, ys, abxs, abys, invs = arrays
-    nxs, nys, gs1, starts1, items1, nxs2, nys2, gs2, starts2, items2 = grids
+    nxs, nys, gs1, starts1, is1, items1, nxs2, nys2, gs2, starts2, is2, items2 = grids
     m = first.shape[0]
     shared = np.zeros(m)
     near = np.full(m, np.inf)
@@ -493,13 +500,13 @@ def spacing_profiles(first, second, offsets, arrays, geos, grids, glance, sample
         inv = invs[sstart[b]:sstart[b + 1]]
         st1 = starts1[gs1[b]:gs1[b + 1]]
         st2 = starts2[gs2[b]:gs2[b + 1]]
-        it1 = items1[vb0:vb1]
-        it2 = items2[vb0:vb1]
-        x0, y0, cell, half = geos[b, 0], geos[b, 1], geos[b, 2], geos[b, 3]
+        it1 = items1[is1[b]:is1[b + 1]]
+        it2 = items2[is2[b]:is2[b + 1]]
+        x0, y0, cell = geos[b, 0], geos[b, 1], geos[b, 2]
         found = False
         for i in range(va0, va0 + na, max(na // glance, 1)):
-            d2, _seg, _frac = _nearest(xs[i], ys[i], x, y, abx, aby, inv, x0, y0, cell, half,
-                                nxs[b], nys[b], st1, it1, nxs2[b], nys2[b], st2, it2, reach)
+            d2, _seg, _frac = _nearest(xs[i], ys[i], x, y, abx, aby, inv, x0, y0, cell, nxs[b],
+                                       nys[b], st1, it1, nxs2[b], nys2[b], st2, it2, reach)
             if np.sqrt(d2) <= reach:
                 found = True
                 break
@@ -510,8 +517,8 @@ def spacing_profiles(first, second, offsets, arrays, geos, grids, glance, sample
         within = np.empty((na + stride - 1) // stride)
         count = 0
         for i in range(va0, va0 + na, stride):
-            d2, _seg, _frac = _nearest(xs[i], ys[i], x, y, abx, aby, inv, x0, y0, cell, half,
-                                nxs[b], nys[b], st1, it1, nxs2[b], nys2[b], st2, it2, reach)
+            d2, _seg, _frac = _nearest(xs[i], ys[i], x, y, abx, aby, inv, x0, y0, cell, nxs[b],
+                                       nys[b], st1, it1, nxs2[b], nys2[b], st2, it2, reach)
             total += 1
             d = np.sqrt(d2)
             if d <= reach:

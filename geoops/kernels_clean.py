@@ -234,8 +234,8 @@ def unit_tangents(xy, window_pts, order):
 def _grid_cell(span_x, span_y, n, length, longest):
     """Cell size (m) for the bucket grid of a polyline of ``n`` vertices and total ``length``
     whose vertices span ``span_x`` by ``span_y``: about two vertex spacings, at least half the
-    ``longest`` segment (so the search stops within a ring or two of the nearest vertex), and
-    large enough that the grid has at most :data:`geoops.kernels.CELLS_PER_VERTEX` cells per
+    ``longest`` segment (so that no segment is listed in more than 3 x 3 cells), and large
+    enough that the grid has at most :data:`geoops.kernels.CELLS_PER_VERTEX` cells per
     vertex."""
     typical = length / max(n - 1, 1)
     area_cell = math.sqrt(max(span_x, 1e-9) * max(span_y, 1e-9) / (CELLS_PER_VERTEX * n))
@@ -267,7 +267,7 @@ def _index(xy):
     cell = _grid_cell(x.max() - x0, y.max() - y0, n, s[-1], longest)
     nx, ny, start, items = build_grid(x, y, x0, y0, cell)
     nx2, ny2, start2, items2 = build_grid(x, y, x0, y0, cell * COARSE)
-    return ((x, y, abx, aby, inv_den, s, seg_len), (x0, y0, cell, 0.5 * longest),
+    return ((x, y, abx, aby, inv_den, s, seg_len), (x0, y0, cell),
             (nx, ny, start, items, nx2, ny2, start2, items2))
 
 
@@ -297,11 +297,11 @@ def _median_distance(raw, line):
         return np.median(d)
     poly, geo, grid = _index(line)
     x, y, abx, aby, inv_den, _arc, _lengths = poly
-    x0, y0, cell, half_longest = geo
+    x0, y0, cell = geo
     nx, ny, start, items, nx2, ny2, start2, items2 = grid
     for q in range(m):
         d2, _seg, _frac = _nearest(raw[q, 0], raw[q, 1], x, y, abx, aby, inv_den, x0, y0, cell,
-                            half_longest, nx, ny, start, items, nx2, ny2, start2, items2, np.inf)
+                                   nx, ny, start, items, nx2, ny2, start2, items2, np.inf)
         d[q] = math.sqrt(d2)
     return np.median(d)
 
