@@ -213,9 +213,7 @@ class NearestOnPolyline:
         if len(self.xy) >= 2:
             #: the kernels' view of the line (see :func:`geoops.kernels.closest`)
             self.poly, self.geo, self.grid = kernels_clean.index(self.xy)
-            self._x, self._y, self._abx, self._aby, self._inv_den, self._s, self._seg_len = (
-                self.poly
-            )
+            self._s = self.poly[:, kernels.ARC]
         else:
             self._s = arc_length(self.xy)
 
@@ -268,7 +266,8 @@ class NearestOnPolyline:
             d, s, _ = self.query(pts)
             return np.where(d <= limit, d, np.inf), s
         d2, seg, t = self._closest(pts, limit)
-        return np.sqrt(d2), self._s[seg] + t * self._seg_len[seg]
+        rows = self.poly[seg]
+        return np.sqrt(d2), rows[:, kernels.ARC] + t * rows[:, kernels.SEG_LEN]
 
     def nearest(self, pts: Array) -> tuple[Array, Array, Array, Array]:
         """Like :meth:`query`, plus the nearest points themselves, ``(m, 2)``."""
@@ -278,10 +277,10 @@ class NearestOnPolyline:
             foot0 = np.broadcast_to(self.xy[0], pts.shape).copy()
             return d, np.zeros(m), np.ones(m), foot0
         d2, seg, t = self._closest(pts)
-        abx, aby = self._abx[seg], self._aby[seg]
-        ax, ay = self._x[seg], self._y[seg]
+        rows = self.poly[seg]
+        ax, ay, abx, aby = (rows[:, c] for c in (kernels.X, kernels.Y, kernels.ABX, kernels.ABY))
         foot = np.column_stack([ax + t * abx, ay + t * aby])
-        s = self._s[seg] + t * self._seg_len[seg]
+        s = rows[:, kernels.ARC] + t * rows[:, kernels.SEG_LEN]
         cross = abx * (pts[:, 1] - ay) - aby * (pts[:, 0] - ax)
         side = np.where(cross >= 0, 1.0, -1.0)
         return np.sqrt(d2), s, side, foot
@@ -313,25 +312,16 @@ def polyline_set(indexes: list[NearestOnPolyline]) -> tuple[Any, ...]:
     :func:`geoops.kernels.spacing_profiles`, which documents the layout)."""
     if any(len(q.xy) < 2 for q in indexes):
         raise ValueError("every line of a polyline set needs two or more vertices")
-    grids = [q.grid for q in indexes]
+    cells = [q.grid[4] for q in indexes]
 
     def starts(counts: list[int]) -> np.ndarray:
         return np.concatenate([[0], np.cumsum(counts)]).astype(np.int64)
 
-    def cat(arrays: list[np.ndarray], dtype: type) -> np.ndarray:
-        return np.ascontiguousarray(np.concatenate(arrays), dtype=dtype)
-
-    offsets = (starts([len(q.xy) for q in indexes]), starts([len(q.xy) - 1 for q in indexes]))
-    arrays = tuple(cat([q.poly[k] for q in indexes], np.float64) for k in range(5))
-    geos = np.ascontiguousarray(np.array([q.geo for q in indexes], dtype=np.float64))
-    grid_arrays = []
-    for level in (0, 4):
-        grid_arrays += [
-            np.array([g[level] for g in grids], dtype=np.int64),
-            np.array([g[level + 1] for g in grids], dtype=np.int64),
-            starts([len(g[level + 2]) for g in grids]),
-            cat([g[level + 2] for g in grids], np.int64),
-            starts([len(g[level + 3]) for g in grids]),
-            cat([g[level + 3] for g in grids], np.int64),
-        ]
-    return offsets, arrays, geos, tuple(grid_arrays)
+    return (
+        starts([len(q.xy) for q in indexes]),
+        np.ascontiguousarray(np.concatenate([q.poly for q in indexes]), dtype=np.float64),
+        np.ascontiguousarray(np.array([q.geo for q in indexes], dtype=np.float64)),
+        np.ascontiguousarray(np.array([q.grid[:4] for q in indexes], dtype=np.int64)),
+        starts([len(c) for c in cells]),
+        np.ascontiguousarray(np.concatenate(cells), dtype=np.int64),
+    )

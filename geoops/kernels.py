@@ -82,13 +82,19 @@ STOP_MARGIN_REL = 1e-9
 STOP_MARGIN_M = 1e-9
 
 
+#: the columns of a polyline's array (see :func:`closest`)
+X, Y, ABX, ABY, INV_DEN, ARC, SEG_LEN = range(7)
+
+
 @inline
-def _search(px, py, x, y, abx, aby, inv_den, x0, y0, size, gnx, gny, st, it, most_rings, limit,
-            best, best_seg, best_t):
+def _search(px, py, poly, x0, y0, size, gnx, gny, cells, st, it, most_rings, limit, best,
+            best_seg, best_t):
     """Scan rings of one grid's cells around ``(px, py)``, projecting the query onto each
     segment listed there, until no unseen segment can be closer (or none can be within
-    ``limit``, or ``most_rings`` rings beyond the first have been scanned). Returns the best
-    (squared distance, segment, fraction) and whether it is final."""
+    ``limit``, or ``most_rings`` rings beyond the first have been scanned). The grid is
+    ``gnx`` by ``gny`` cells of ``size``; ``cells[st + c]`` is where cell ``c``'s segments
+    start in ``cells[it:]``. Returns the best (squared distance, segment, fraction) and
+    whether it is final."""
     fx = (px - x0) / size
     fy = (py - y0) / size
     # far off the grid (or not a number): clamped so that the cell index stays an int
@@ -106,13 +112,17 @@ def _search(px, py, x, y, abx, aby, inv_den, x0, y0, size, gnx, gny, st, it, mos
             gx_end = min(cx + r, gnx - 1)
             while gx <= gx_end:
                 if gx >= 0:
-                    c = gy * gnx + gx
-                    for k in range(st[c], st[c + 1]):
-                        sg = it[k]
-                        t = ((px - x[sg]) * abx[sg] + (py - y[sg]) * aby[sg]) * inv_den[sg]
+                    c = st + gy * gnx + gx
+                    for k in range(it + cells[c], it + cells[c + 1]):
+                        sg = cells[k]
+                        ax = poly[sg, X]
+                        ay = poly[sg, Y]
+                        vx = poly[sg, ABX]
+                        vy = poly[sg, ABY]
+                        t = ((px - ax) * vx + (py - ay) * vy) * poly[sg, INV_DEN]
                         t = min(max(t, 0.0), 1.0)
-                        dx = px - x[sg] - t * abx[sg]
-                        dy = py - y[sg] - t * aby[sg]
+                        dx = px - ax - t * vx
+                        dy = py - ay - t * vy
                         d2 = dx * dx + dy * dy
                         if d2 < best or (d2 == best and sg < best_seg):
                             best = d2
@@ -137,26 +147,28 @@ def _search(px, py, x, y, abx, aby, inv_den, x0, y0, size, gnx, gny, st, it, mos
 
 
 @inline
-def _nearest(px, py, x, y, abx, aby, inv_den, x0, y0, cell, nx, ny, start, items, nx2, ny2,
-             start2, items2, limit):
+def _nearest(px, py, poly, geo, grid, limit):
     """Squared distance, segment and fraction along it of the point of the polyline nearest to
     ``(px, py)`` (see :func:`closest`); inf (segment 0) when nothing lies within ``limit``."""
+    x0, y0, cell = geo
+    nx, ny, nx2, ny2, cells = grid
+    items = nx * ny + 1
+    start2 = items + cells[nx * ny]
     best, best_seg, best_t, done = _search(
-        px, py, x, y, abx, aby, inv_den, x0, y0, cell, nx, ny, start, items, FINE_RINGS, limit,
-        np.inf, 0, 0.0)
+        px, py, poly, x0, y0, cell, nx, ny, cells, 0, items, FINE_RINGS, limit, np.inf, 0, 0.0)
     if not done:
         best, best_seg, best_t, done = _search(
-            px, py, x, y, abx, aby, inv_den, x0, y0, cell * COARSE, nx2, ny2, start2, items2,
-            1 << 40, limit, best, best_seg, best_t)
+            px, py, poly, x0, y0, cell * COARSE, nx2, ny2, cells, start2,
+            start2 + nx2 * ny2 + 1, 1 << 40, limit, best, best_seg, best_t)
     if best > limit * limit:
         return np.inf, 0, 0.0
     return best, best_seg, best_t
 
 
-#: the numba types of a polyline's arrays and of its two bucket grids, as passed to the kernels
-_POLY = "UniTuple(float64[::1], 7)"
+#: the numba types of a polyline's array and of its two bucket grids, as passed to the kernels
+_POLY = "float64[:, ::1]"
 _GEO = "UniTuple(float64, 3)"
-_GRID = "Tuple((int64, int64, int64[::1], int64[::1], int64, int64, int64[::1], int64[::1]))"
+_GRID = "Tuple((int64, int64, int64, int64, int64[::1]))"
 
 
 @compiled(f"Tuple((float64[::1], int64[::1], float64[::1]))(float64[:, ::1], {_POLY}, {_GEO}, "
@@ -167,24 +179,23 @@ def closest(pts, poly, geo, grid, limit):
     within ``limit`` gets an infinite distance (segment 0, fraction 0), found without
     searching farther (pass inf for no limit).
 
-    ``poly`` holds the ``n`` vertices ``x, y``, the ``n - 1`` segments' vectors ``abx, aby``
-    and inverse squared lengths (0 for a zero-length segment), the vertices' arc length and
-    the segments' lengths; ``geo`` the grid origin ``x0, y0`` and the fine cell. The segments
-    are bucketed twice from the same origin (``grid``, see :func:`build_grid`): in fine cells
-    and in cells :data:`COARSE` times larger; a query still unresolved after
-    :data:`FINE_RINGS` rings of fine cells (far from the line) continues on the coarse grid,
-    where fewer, fuller cells cover the same distance."""
-    x, y, abx, aby, inv_den, _arc, _lengths = poly
-    x0, y0, cell = geo
-    nx, ny, start, items, nx2, ny2, start2, items2 = grid
+    ``poly`` holds one row per vertex (columns :data:`X` ... :data:`SEG_LEN`): its ``x, y``,
+    the vector ``abx, aby`` to the next vertex, the inverse of its squared length (0 for a
+    zero-length segment), the vertex's arc length and the segment's length (the last row's
+    segment columns are 0); ``geo`` the grid origin ``x0, y0`` and the fine cell. The segments
+    are bucketed twice from the same origin (``grid``): ``nx, ny`` fine cells and ``nx2, ny2``
+    cells :data:`COARSE` times larger, and one array that holds the fine grid's cell starts
+    (``nx * ny + 1``), its bucketed segments, then the same two for the coarse grid (see
+    :func:`build_grid`). A query still unresolved after :data:`FINE_RINGS` rings of fine
+    cells (far from the line) continues on the coarse grid, where fewer, fuller cells cover
+    the same distance. One array per line, not one per column, because every array a helper
+    is handed costs a reference count in and out per query."""
     m = pts.shape[0]
     out_d2 = np.empty(m)
     out_seg = np.empty(m, dtype=np.int64)
     out_t = np.empty(m)
     for q in range(m):
-        out_d2[q], out_seg[q], out_t[q] = _nearest(
-            pts[q, 0], pts[q, 1], x, y, abx, aby, inv_den, x0, y0, cell, nx, ny, start, items,
-            nx2, ny2, start2, items2, limit)
+        out_d2[q], out_seg[q], out_t[q] = _nearest(pts[q, 0], pts[q, 1], poly, geo, grid, limit)
     return out_d2, out_seg, out_t
 
 
@@ -194,14 +205,10 @@ def _landing(px, py, poly, geo, grid, usable, step, edge):
     nearest point more than ``edge`` from either end, on a sample marked ``usable``, the
     target's samples ``step`` apart), the squared distance, the segment and fraction along it
     of the nearest point, and its arc-length position."""
-    x, y, abx, aby, inv_den, s_cum, seg_len = poly
-    x0, y0, cell = geo
-    nx, ny, start, items, nx2, ny2, start2, items2 = grid
-    d2, sg, t = _nearest(px, py, x, y, abx, aby, inv_den, x0, y0, cell, nx, ny, start, items,
-                         nx2, ny2, start2, items2, np.inf)
-    s = s_cum[sg] + t * seg_len[sg]
+    d2, sg, t = _nearest(px, py, poly, geo, grid, np.inf)
+    s = poly[sg, ARC] + t * poly[sg, SEG_LEN]
     at = min(max(int(np.rint(s / step)), 0), usable.shape[0] - 1)
-    valid = s > edge and s < s_cum[-1] - edge and usable[at]
+    valid = s > edge and s < poly[poly.shape[0] - 1, ARC] - edge and usable[at]
     return valid, d2, sg, t, s
 
 
@@ -256,7 +263,6 @@ def misfit_sums(base, u, nrm, shift, lengths, mode, poly, geo, grid, usable, ste
     lateral shift). PROFILED replaces the squared distance by the squared lateral miss along
     ``nrm`` less the best constant shift (their mean over the untruncated predictions,
     within +- ``shift_max``), reported in column SHIFT."""
-    x, y, abx, aby, _inv, _arc, seg_len = poly
     m = base.shape[0]
     k = lengths.shape[0]
     out = np.zeros((k, 8))
@@ -275,8 +281,8 @@ def misfit_sums(base, u, nrm, shift, lengths, mode, poly, geo, grid, usable, ste
                 continue
             out[j, USED] += 1.0
             inner = d2 < cap2
-            fx = x[sg] + t * abx[sg]
-            fy = y[sg] + t * aby[sg]
+            fx = poly[sg, X] + t * poly[sg, ABX]
+            fy = poly[sg, Y] + t * poly[sg, ABY]
             if mode == PROFILED:
                 lateral[i] = (fx - px) * nrm[i, 0] + (fy - py) * nrm[i, 1]
                 if inner:
@@ -285,9 +291,9 @@ def misfit_sums(base, u, nrm, shift, lengths, mode, poly, geo, grid, usable, ste
                 continue
             out[j, SUM_SQ] += min(d2, cap2)
             if mode == NEWTON and inner:
-                inv = 1.0 / max(seg_len[sg], 1e-12)
-                tnx = -aby[sg] * inv
-                tny = abx[sg] * inv
+                inv = 1.0 / max(poly[sg, SEG_LEN], 1e-12)
+                tnx = -poly[sg, ABY] * inv
+                tny = poly[sg, ABX] * inv
                 e = (px - fx) * tnx + (py - fy) * tny
                 g = u[i, 0] * tnx + u[i, 1] * tny
                 h = nrm[i, 0] * tnx + nrm[i, 1] * tny
@@ -462,27 +468,22 @@ def fit_direction(coarse_base, coarse_tangents, fine_base, fine_tangents, along,
 
 
 #: the numba types of a set of polylines (see :func:`spacing_profiles`)
-_SET = ("UniTuple(int64[::1], 2), UniTuple(float64[::1], 5), float64[:, ::1], "
-        "UniTuple(int64[::1], 12)")
+_SET = "int64[::1], float64[:, ::1], float64[:, ::1], int64[:, ::1], int64[::1], int64[::1]"
 
 
 @compiled(f"UniTuple(float64[::1], 2)(int64[::1], int64[::1], {_SET}, int64, int64, float64, "
            f"float64)")
-def spacing_profiles(first, second, offsets, arrays, geos, grids, glance, samples, reach, q):
+def spacing_profiles(first, second, vstart, polys, geos, sizes, cstart, cells, glance, samples,
+                     reach, q):
     """For each pair ``(first[k], second[k])`` of lines of a set: the share of the first's
     sampled vertices within ``reach`` of the second, and the ``q``-th percentile (numpy's
     linear interpolation) of the distances of those within (inf when none is).
 
     Every ``len // glance``-th vertex is looked at first; when none of those is within reach
     the pair gets (0, inf) without the full profile over every ``len // samples``-th vertex.
-    The set (``geoops.curves.polyline_set``): ``offsets`` = (vertex starts, segment starts),
-    ``arrays`` = (x, y, abx, aby, inv_den) concatenated, ``geos`` one row of (x0, y0, cell)
-    per line, ``grids`` = (nx, ny, cell-array starts, fine cell starts, bucket-array starts,
-    fine buckets, and the same six for the coarse grid); the bucketed segment indices are
-    each line's own."""
-    vstart, sstart = offsets
-    xs, ys, abxs, abys, invs = arrays
-    nxs, nys, gs1, starts1, is1, items1, nxs2, nys2, gs2, starts2, is2, items2 = grids
+    The set (``geoops.curves.polyline_set``) holds each line's arrays of :func:`closest`
+    concatenated: ``polys`` its rows from ``vstart``, ``geos`` one row per line, ``sizes``
+    one row of (nx, ny, nx2, ny2) per line, ``cells`` its cell array from ``cstart``."""
     m = first.shape[0]
     shared = np.zeros(m)
     near = np.full(m, np.inf)
@@ -491,22 +492,13 @@ def spacing_profiles(first, second, offsets, arrays, geos, grids, glance, sample
         b = second[k]
         va0 = vstart[a]
         na = vstart[a + 1] - va0
-        vb0 = vstart[b]
-        vb1 = vstart[b + 1]
-        x = xs[vb0:vb1]
-        y = ys[vb0:vb1]
-        abx = abxs[sstart[b]:sstart[b + 1]]
-        aby = abys[sstart[b]:sstart[b + 1]]
-        inv = invs[sstart[b]:sstart[b + 1]]
-        st1 = starts1[gs1[b]:gs1[b + 1]]
-        st2 = starts2[gs2[b]:gs2[b + 1]]
-        it1 = items1[is1[b]:is1[b + 1]]
-        it2 = items2[is2[b]:is2[b + 1]]
-        x0, y0, cell = geos[b, 0], geos[b, 1], geos[b, 2]
+        poly = polys[vstart[b]:vstart[b + 1]]
+        geo = (geos[b, 0], geos[b, 1], geos[b, 2])
+        grid = (sizes[b, 0], sizes[b, 1], sizes[b, 2], sizes[b, 3],
+                cells[cstart[b]:cstart[b + 1]])
         found = False
         for i in range(va0, va0 + na, max(na // glance, 1)):
-            d2, _seg, _frac = _nearest(xs[i], ys[i], x, y, abx, aby, inv, x0, y0, cell, nxs[b],
-                                       nys[b], st1, it1, nxs2[b], nys2[b], st2, it2, reach)
+            d2, _seg, _frac = _nearest(polys[i, X], polys[i, Y], poly, geo, grid, reach)
             if np.sqrt(d2) <= reach:
                 found = True
                 break
@@ -517,8 +509,7 @@ def spacing_profiles(first, second, offsets, arrays, geos, grids, glance, sample
         within = np.empty((na + stride - 1) // stride)
         count = 0
         for i in range(va0, va0 + na, stride):
-            d2, _seg, _frac = _nearest(xs[i], ys[i], x, y, abx, aby, inv, x0, y0, cell, nxs[b],
-                                       nys[b], st1, it1, nxs2[b], nys2[b], st2, it2, reach)
+            d2, _seg, _frac = _nearest(polys[i, X], polys[i, Y], poly, geo, grid, reach)
             total += 1
             d = np.sqrt(d2)
             if d <= reach:

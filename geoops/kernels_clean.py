@@ -27,8 +27,15 @@ from .kernels import (
     _GEO,
     _GRID,
     _POLY,
+    ABX,
+    ABY,
+    ARC,
     CELLS_PER_VERTEX,
     COARSE,
+    INV_DEN,
+    SEG_LEN,
+    X,
+    Y,
     _nearest,
     build_grid,
 )
@@ -247,35 +254,39 @@ def _grid_cell(span_x, span_y, n, length, longest):
 @inline
 def _index(xy):
     n = xy.shape[0]
-    x = np.ascontiguousarray(xy[:, 0])
-    y = np.ascontiguousarray(xy[:, 1])
-    abx = np.empty(n - 1)
-    aby = np.empty(n - 1)
-    inv_den = np.empty(n - 1)
-    seg_len = np.empty(n - 1)
+    poly = np.zeros((n, 7))
     s = _arc_length(xy)
     longest = 0.0
-    for i in range(n - 1):
-        abx[i] = x[i + 1] - x[i]
-        aby[i] = y[i + 1] - y[i]
-        den = abx[i] * abx[i] + aby[i] * aby[i]
-        seg_len[i] = math.sqrt(den)
-        inv_den[i] = 1.0 / den if den > 0 else 0.0
-        longest = max(longest, seg_len[i])
+    for i in range(n):
+        poly[i, X] = xy[i, 0]
+        poly[i, Y] = xy[i, 1]
+        poly[i, ARC] = s[i]
+        if i == n - 1:
+            break
+        abx = xy[i + 1, 0] - xy[i, 0]
+        aby = xy[i + 1, 1] - xy[i, 1]
+        den = abx * abx + aby * aby
+        poly[i, ABX] = abx
+        poly[i, ABY] = aby
+        poly[i, INV_DEN] = 1.0 / den if den > 0 else 0.0
+        poly[i, SEG_LEN] = math.sqrt(den)
+        longest = max(longest, poly[i, SEG_LEN])
+    x = np.ascontiguousarray(xy[:, 0])
+    y = np.ascontiguousarray(xy[:, 1])
     x0 = x.min()
     y0 = y.min()
     cell = _grid_cell(x.max() - x0, y.max() - y0, n, s[-1], longest)
     nx, ny, start, items = build_grid(x, y, x0, y0, cell)
     nx2, ny2, start2, items2 = build_grid(x, y, x0, y0, cell * COARSE)
-    return ((x, y, abx, aby, inv_den, s, seg_len), (x0, y0, cell),
-            (nx, ny, start, items, nx2, ny2, start2, items2))
+    cells = np.concatenate((start, items, start2, items2))
+    return poly, (x0, y0, cell), (nx, ny, nx2, ny2, cells)
 
 
 @compiled(f"Tuple(({_POLY}, {_GEO}, {_GRID}))(float64[:, ::1])")
 def index(xy):
-    """A polyline of two or more vertices as the kernels of :mod:`geoops.kernels` take it:
-    its arrays ``(x, y, abx, aby, inv_den, s, seg_len)``, the grid geometry ``(x0, y0, cell,
-    half the longest segment)`` and the fine and coarse bucket grids."""
+    """A polyline of two or more vertices as the kernels of :mod:`geoops.kernels` take it
+    (see :func:`geoops.kernels.closest`): one row per vertex, the grid geometry ``(x0, y0,
+    cell)`` and the fine and coarse bucket grids."""
     return _index(xy)
 
 
@@ -296,12 +307,8 @@ def _median_distance(raw, line):
             d[q] = math.hypot(raw[q, 0] - line[0, 0], raw[q, 1] - line[0, 1])
         return np.median(d)
     poly, geo, grid = _index(line)
-    x, y, abx, aby, inv_den, _arc, _lengths = poly
-    x0, y0, cell = geo
-    nx, ny, start, items, nx2, ny2, start2, items2 = grid
     for q in range(m):
-        d2, _seg, _frac = _nearest(raw[q, 0], raw[q, 1], x, y, abx, aby, inv_den, x0, y0, cell,
-                                   nx, ny, start, items, nx2, ny2, start2, items2, np.inf)
+        d2, _seg, _frac = _nearest(raw[q, 0], raw[q, 1], poly, geo, grid, np.inf)
         d[q] = math.sqrt(d2)
     return np.median(d)
 
