@@ -74,31 +74,49 @@ _GLANCE = 24
 _PROFILE_SAMPLES = 200
 
 
-def candidate_pairs(ruts: list[CleanRut], workers: int | None = None) -> list[Candidate]:
-    """Pairs of ruts that run near each other (at least :data:`MIN_SHARED_FRACTION` of the
-    shorter within :data:`NEIGHBOUR_DISTANCE_M` of the other), with their spacing profile
-    (measured in ``workers`` threads)."""
-    if len(ruts) < 2:
-        return []
-    # boxes within reach first (exact line-to-line distances cost far more than the profile,
-    # which measures the distance anyway: a pair farther apart shares nothing)
+#: neighbouring boxes handed to a worker at a time by :func:`choose_pairs`
+_BOXES_PER_ITEM = 8
+
+
+def _neighbours(ruts: list[CleanRut]) -> dict[str, Any]:
+    """Pairs of ruts whose boxes lie within reach (``i < j``; exact line-to-line distances
+    cost far more than the spacing profile, which measures the distance anyway), each also
+    as (``first``, ``second``): its shorter rut first, from which the profile is measured;
+    and the ruts as one polyline set (``set``) for :func:`geoops.kernels.spacing_profiles`."""
     i, j = box_neighbours([r.xy for r in ruts], NEIGHBOUR_DISTANCE_M)
-    # the spacing profile is measured from the shorter rut of each pair, all pairs in one
-    # compiled call; farther points need no exact distance
     lengths = np.array([r.length for r in ruts])
     shorter = lengths[i] <= lengths[j]
-    shared, near = thread_slices(
-        kernels.spacing_profiles,
-        (np.where(shorter, i, j), np.where(shorter, j, i)),
-        (*polyline_set([r.index for r in ruts]), _GLANCE, _PROFILE_SAMPLES,
-         NEIGHBOUR_DISTANCE_M, NEAR_QUANTILE),
-        workers,
-    )
+    return {
+        "i": i, "j": j, "first": np.where(shorter, i, j), "second": np.where(shorter, j, i),
+        "set": polyline_set([r.index for r in ruts]),
+    }
+
+
+def _profile_args(near: dict[str, Any]) -> tuple[Any, ...]:
+    return (*near["set"], _GLANCE, _PROFILE_SAMPLES, NEIGHBOUR_DISTANCE_M, NEAR_QUANTILE)
+
+
+def _as_candidates(
+    i: np.ndarray, j: np.ndarray, shared: np.ndarray, near: np.ndarray
+) -> list[Candidate]:
     return [
         Candidate(a, b, s, n)
         for a, b, s, n in zip(i.tolist(), j.tolist(), shared.tolist(), near.tolist(), strict=True)
         if s >= MIN_SHARED_FRACTION
     ]
+
+
+def candidate_pairs(ruts: list[CleanRut], workers: int | None = None) -> list[Candidate]:
+    """Pairs of ruts that run near each other (at least :data:`MIN_SHARED_FRACTION` of the
+    shorter within :data:`NEIGHBOUR_DISTANCE_M` of the other), with their spacing profile
+    (measured in ``workers`` threads, all pairs of a thread in one compiled call)."""
+    if len(ruts) < 2:
+        return []
+    near = _neighbours(ruts)
+    shared, quantile = thread_slices(
+        kernels.spacing_profiles, (near["first"], near["second"]), _profile_args(near), workers
+    )
+    return _as_candidates(near["i"], near["j"], shared, quantile)
 
 
 def _rank(result: PairResult, shared: float) -> float:
@@ -112,6 +130,24 @@ def _judge(state: dict[str, Any], pair: tuple[int, int]) -> PairResult:
     return solve_pair(ruts[pair[0]], ruts[pair[1]], legs=pair[0] in cut or pair[1] in cut)
 
 
+def _profile_and_judge(
+    state: dict[str, Any], span: tuple[int, int]
+) -> list[tuple[Candidate, PairResult | None]]:
+    """The candidates among neighbouring boxes ``span`` (see :func:`_neighbours`), legs of
+    one line left out, each with its judgement where its spacing allows a front/rear pair."""
+    near, same_line, ruts = state["near"], state["same_line"], state["ruts"]
+    lo, hi = span
+    shared, quantile = kernels.spacing_profiles(
+        near["first"][lo:hi], near["second"][lo:hi], *_profile_args(near)
+    )
+    out: list[tuple[Candidate, PairResult | None]] = []
+    for c in _as_candidates(near["i"][lo:hi], near["j"][lo:hi], shared, quantile):
+        if same_line is not None and same_line[c.i] == same_line[c.j]:
+            continue
+        out.append((c, _judge(state, (c.i, c.j)) if c.may_be_front_rear(ruts) else None))
+    return out
+
+
 def choose_pairs(
     ruts: list[CleanRut], same_line: list[int] | None = None, workers: int | None = None
 ) -> Pairing:
@@ -120,21 +156,23 @@ def choose_pairs(
 
     ``same_line`` gives, per rut, the input line it was cut from (legs of one line, split at
     its reversals); legs of one line are never paired with each other. ``workers`` > 1
-    judges the candidates in that many forked processes (same result).
+    measures the spacing profiles (:func:`candidate_pairs`) and judges the candidates in that
+    many forked processes, in one pass (same result).
     """
-    cands = candidate_pairs(ruts, workers)
-    if same_line is not None:
-        cands = [c for c in cands if same_line[c.i] != same_line[c.j]]
-    todo = [c for c in cands if c.may_be_front_rear(ruts)]
+    if len(ruts) < 2:
+        return Pairing([], {k: "no_partner" for k in range(len(ruts))})
     # legs of a line cut at its reversals (see solve_pair's ``legs``)
     per_line: dict[int, int] = {}
     for k in same_line or []:
         per_line[k] = per_line.get(k, 0) + 1
     cut = {k for k, line in enumerate(same_line or []) if per_line[line] > 1}
-    results = pool_map(
-        _judge, [(c.i, c.j) for c in todo], {"ruts": ruts, "cut": cut}, workers
-    )
-    judged = [(c.i, c.j, c.shared, r) for c, r in zip(todo, results, strict=True)]
+    near = _neighbours(ruts)
+    n = len(near["i"])
+    spans = [(a, min(a + _BOXES_PER_ITEM, n)) for a in range(0, n, _BOXES_PER_ITEM)]
+    state = {"ruts": ruts, "cut": cut, "near": near, "same_line": same_line}
+    found = [c for part in pool_map(_profile_and_judge, spans, state, workers) for c in part]
+    cands = [c for c, _ in found]
+    judged = [(c.i, c.j, c.shared, r) for c, r in found if r is not None]
     fitting = [c for c in judged if c[3].verdict != "not_a_pair"]
     fitting.sort(key=lambda c: _rank(c[3], c[2]))
     used: set[int] = set()
