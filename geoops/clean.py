@@ -9,6 +9,7 @@ from the smoothed curve. It must not pair, orient or judge ruts.
 
 from __future__ import annotations
 
+from concurrent.futures import ThreadPoolExecutor
 from dataclasses import dataclass, field
 
 import numpy as np
@@ -309,3 +310,87 @@ def clean_line(
         tangent_var=tangent_var,
         index=NearestOnPolyline(sm),
     )
+
+
+#: fewest lines per thread for which :func:`clean_lines` starts threads
+MIN_LINES_PER_THREAD = 64
+
+
+def _sigma_in(accuracy: float | None) -> tuple[float, str]:
+    if accuracy is not None and accuracy > 0:
+        return float(accuracy), "stated"
+    return float("nan"), "estimated"
+
+
+def clean_lines(
+    lines: list[tuple[Array, np.ndarray]],
+    accuracies: list[float | None],
+    turn_base: tuple[float, float],
+    workers: int | None = None,
+) -> tuple[list[CleanRut | str], Array]:
+    """:func:`clean_line` for many joined lines (see :func:`join_parts`), each with its stated
+    accuracy or None, and the least turn cosine of each (see
+    :func:`geoops.kernels_clean.least_turn_cosine`), measured over ``max(turn_base[0],
+    turn_base[1] * sigma)``. Returns per line its cleaned rut or why it cannot be used
+    (same as :func:`clean_line`), and the cosines.
+
+    The lines go to :func:`geoops.kernels_clean.clean_tracks` a group at a time, in up to
+    ``workers`` threads (the kernel releases the GIL), groups cut by vertex count; the ruts'
+    arrays are views of the group's arrays."""
+    n = len(lines)
+    out: list[CleanRut | str] = ["" for _ in range(n)]
+    least = np.full(n, 2.0)
+    if n == 0:
+        return out, least
+    if any(len(xy) < 2 for xy, _ in lines):
+        raise ValueError("every line to clean needs two or more vertices (see join_parts)")
+    sizes = np.array([len(xy) for xy, _ in lines], dtype=np.int64)
+    k = 1 if workers is None else max(1, min(int(workers), n // MIN_LINES_PER_THREAD))
+    # contiguous groups of about equal vertex counts
+    edges = np.searchsorted(np.cumsum(sizes), np.arange(1, k) * sizes.sum() / k)
+    cuts = [0, *sorted({int(e) + 1 for e in edges if 0 < e + 1 < n}), n]
+    z = _standard_normals(int(sizes.max()))
+    sigma = [_sigma_in(a) for a in accuracies]
+
+    def clean_group(lo: int, hi: int) -> None:
+        xy = np.ascontiguousarray(np.concatenate([lines[r][0] for r in range(lo, hi)]),
+                                  dtype=np.float64)
+        gaps = np.ascontiguousarray(np.concatenate([lines[r][1] for r in range(lo, hi)]),
+                                    dtype=np.bool_)
+        starts = np.concatenate([[0], np.cumsum(sizes[lo:hi])]).astype(np.int64)
+        (status, numbers, turn, at, pts, tangents, has_data, polys, geos, grids, cell_at,
+         cells) = kernels_clean.clean_tracks(
+            xy, gaps, starts, np.array([sigma[r][0] for r in range(lo, hi)]), z,
+            float(turn_base[0]), float(turn_base[1]))
+        least[lo:hi] = turn
+        for g, r in enumerate(range(lo, hi)):
+            if status[g] == kernels_clean.ZERO_LENGTH:
+                out[r] = "A rut has zero length."
+                continue
+            a, b = at[g], at[g + 1]
+            nx, ny, nx2, ny2 = (int(v) for v in grids[g])
+            sig, window, step, tangent_var, raw_length, _ = (float(v) for v in numbers[g])
+            out[r] = CleanRut(
+                xy=pts[a:b],
+                step=step,
+                has_data=has_data[a:b],
+                sigma=sig,
+                sigma_source=sigma[r][1],
+                window_m=window,
+                raw_length=raw_length,
+                raw_xy=xy[starts[g]:starts[g + 1]],
+                raw_gap_after=gaps[starts[g]:starts[g + 1]],
+                tangents=tangents[a:b],
+                tangent_var=tangent_var,
+                index=NearestOnPolyline.built(
+                    pts[a:b], polys[a:b], (float(geos[g, 0]), float(geos[g, 1]),
+                                           float(geos[g, 2])),
+                    (nx, ny, nx2, ny2, cells[cell_at[g]:cell_at[g + 1]])),
+            )
+
+    if len(cuts) == 2:
+        clean_group(0, n)
+    else:
+        with ThreadPoolExecutor(len(cuts) - 1) as pool:
+            list(pool.map(lambda ab: clean_group(*ab), zip(cuts[:-1], cuts[1:], strict=True)))
+    return out, least

@@ -339,17 +339,8 @@ def _tangent_variance(raw, s_raw, pts, s, sigma, window_pts, z):
     return acc / count if count else 0.0
 
 
-@compiled("Tuple((int64, float64[:, ::1], float64[::1], float64[:, ::1], boolean[::1], "
-           "UniTuple(float64, 6)))(float64[:, ::1], boolean[::1], float64, float64[:, ::1])")
-def clean_track(xy, gap_after, sigma_in, z):
-    """The arithmetic of :func:`geoops.clean.clean_line` for one joined line (two or more
-    vertices, ``gap_after`` per vertex): ``sigma_in`` is the noise to use, or NaN to estimate
-    it; ``z`` standard normal draws, a row per vertex at least (see
-    :func:`geoops.clean._tangent_variance`).
-
-    Returns the status (:data:`CLEANED` or :data:`ZERO_LENGTH`), the smoothed points, their
-    arc-length positions, unit tangents, which samples hold data, and (sigma, window, step,
-    tangent variance, raw length, spacing)."""
+@inline
+def _clean_track(xy, gap_after, sigma_in, z):
     s_raw = _arc_length(xy)
     n_raw = xy.shape[0]
     raw_length = 0.0
@@ -403,29 +394,67 @@ def clean_track(xy, gap_after, sigma_in, z):
             (sigma, window, real_step, tangent_var, raw_length, spacing))
 
 
+@compiled("Tuple((int64, float64[:, ::1], float64[::1], float64[:, ::1], boolean[::1], "
+           "UniTuple(float64, 6)))(float64[:, ::1], boolean[::1], float64, float64[:, ::1])")
+def clean_track(xy, gap_after, sigma_in, z):
+    """The arithmetic of :func:`geoops.clean.clean_line` for one joined line (two or more
+    vertices, ``gap_after`` per vertex): ``sigma_in`` is the noise to use, or NaN to estimate
+    it; ``z`` standard normal draws, a row per vertex at least (see
+    :func:`geoops.clean._tangent_variance`).
+
+    Returns the status (:data:`CLEANED` or :data:`ZERO_LENGTH`), the smoothed points, their
+    arc-length positions, unit tangents, which samples hold data, and (sigma, window, step,
+    tangent variance, raw length, spacing)."""
+    return _clean_track(xy, gap_after, sigma_in, z)
+
+
+@inline
+def _least_turn_cosine(xy, base_m):
+    n_raw = xy.shape[0]
+    if n_raw < 3:
+        return 2.0
+    k = 8
+    s_raw = _arc_length(xy)
+    total = s_raw[-1]
+    n = max(int(math.ceil(total / (base_m / k) - 1e-9)), 1)
+    if n + 1 < 2 * k + 1:
+        return 2.0
+    size = 2 * k + 1
+    ring = np.empty((size, 2))
+    seg = 0
+    least = 1.0
+    for j in range(n + 1):
+        at = total * j / n
+        while seg < n_raw - 2 and s_raw[seg + 1] < at:
+            seg += 1
+        span = s_raw[seg + 1] - s_raw[seg]
+        f = min(max((at - s_raw[seg]) / span, 0.0), 1.0) if span > 0 else 0.0
+        ring[j % size, 0] = xy[seg, 0] + f * (xy[seg + 1, 0] - xy[seg, 0])
+        ring[j % size, 1] = xy[seg, 1] + f * (xy[seg + 1, 1] - xy[seg, 1])
+        if j < 2 * k:
+            continue
+        a = (j - 2 * k) % size
+        b = (j - k) % size
+        c = j % size
+        ax = ring[b, 0] - ring[a, 0]
+        ay = ring[b, 1] - ring[a, 1]
+        lx = ring[c, 0] - ring[b, 0]
+        ly = ring[c, 1] - ring[b, 1]
+        dot = ax * lx + ay * ly
+        norm = max(math.sqrt((ax * ax + ay * ay) * (lx * lx + ly * ly)), 1e-12)
+        least = min(least, dot / norm)
+    return least
+
+
 @compiled("float64(float64[:, ::1], float64)")
 def least_turn_cosine(xy, base_m):
     """The smallest cosine of the turn between the chord arriving over ``base_m`` and the chord
     leaving over ``base_m`` at any sample of ``xy`` (resampled every ``base_m / 8``), as
     :func:`geoops.reversals.find_reversals` measures the turn; 2 when the line is too short
-    to measure."""
-    if xy.shape[0] < 3:
-        return 2.0
-    k = 8
-    pts, _at = _resample(xy, _arc_length(xy), base_m / k)
-    n = pts.shape[0]
-    if n < 2 * k + 1:
-        return 2.0
-    least = 1.0
-    for i in range(n - 2 * k):
-        ax = pts[i + k, 0] - pts[i, 0]
-        ay = pts[i + k, 1] - pts[i, 1]
-        lx = pts[i + 2 * k, 0] - pts[i + k, 0]
-        ly = pts[i + 2 * k, 1] - pts[i + k, 1]
-        dot = ax * lx + ay * ly
-        norm = max(math.sqrt((ax * ax + ay * ay) * (lx * lx + ly * ly)), 1e-12)
-        least = min(least, dot / norm)
-    return least
+    to measure. The samples are interpolated as the walk along the line reaches them, the
+    last ``2 * 8 + 1`` kept in a ring: no resampled copy of the line is made (equal to the
+    numpy measurement up to rounding, which the caller's margin covers)."""
+    return _least_turn_cosine(xy, base_m)
 
 
 #: a vertex is a spike where the line turns back by more than SPIKE_TURN radians and a
@@ -486,3 +515,88 @@ def tidy_part(xy, tol, passes):
             break
         out = out[keep]
     return np.ascontiguousarray(out)
+
+
+@inline
+def _room(buf, used, need):
+    """``buf`` (rows of any width) if it has room for ``need`` more rows after ``used``, else a
+    copy of its used rows in a buffer twice as large (or as large as needed)."""
+    if used + need <= buf.shape[0]:
+        return buf
+    shape = (max(2 * buf.shape[0], used + need),) + buf.shape[1:]
+    grown = np.empty(shape, dtype=buf.dtype)
+    grown[:used] = buf[:used]
+    return grown
+
+
+@compiled("Tuple((int64[::1], float64[:, ::1], float64[::1], int64[::1], float64[:, ::1], "
+          "float64[:, ::1], boolean[::1], float64[:, ::1], float64[:, ::1], int64[:, ::1], "
+          "int64[::1], int64[::1]))(float64[:, ::1], boolean[::1], int64[::1], float64[::1], "
+          "float64[:, ::1], float64, float64)")
+def clean_tracks(xy, gap_after, starts, sigma_in, z, turn_base_m, turn_base_sigmas):
+    """:func:`clean_track`, :func:`index` and :func:`least_turn_cosine` for many joined lines
+    in one call: line ``r`` is ``xy[starts[r]:starts[r + 1]]`` (with its ``gap_after``) and
+    ``sigma_in[r]`` its noise (NaN: estimate it); the turn is measured over
+    ``max(turn_base_m, turn_base_sigmas * sigma)``. The same numbers as those calls, one line
+    after the other, without a call (and its array wrappers) per line.
+
+    Returns per line the status, the six numbers of :func:`clean_track` and the least turn
+    cosine; the cleaned samples of all lines one after the other (line ``r`` from
+    ``out_starts[r]``): points, tangents, has-data, the polyline rows of :func:`index`;
+    per line its grid geometry and sizes ``(nx, ny, nx2, ny2)``; and the grids' cell arrays
+    one after the other (line ``r`` from ``cell_starts[r]``)."""
+    lines = starts.shape[0] - 1
+    status = np.empty(lines, dtype=np.int64)
+    numbers = np.zeros((lines, 6))
+    least = np.full(lines, 2.0)
+    out_starts = np.zeros(lines + 1, dtype=np.int64)
+    geos = np.zeros((lines, 3))
+    sizes = np.zeros((lines, 4), dtype=np.int64)
+    cell_starts = np.zeros(lines + 1, dtype=np.int64)
+    guess = 2 * xy.shape[0] + 16
+    pts = np.empty((guess, 2))
+    tangents = np.empty((guess, 2))
+    has_data = np.empty(guess, dtype=np.bool_)
+    polys = np.empty((guess, 7))
+    cells = np.empty(4 * guess, dtype=np.int64)
+    used = 0
+    used_cells = 0
+    for r in range(lines):
+        line = xy[starts[r]:starts[r + 1]]
+        st, sm, _s, tg, data, nums = _clean_track(line, gap_after[starts[r]:starts[r + 1]],
+                                                  sigma_in[r], z)
+        status[r] = st
+        for c in range(6):
+            numbers[r, c] = nums[c]
+        out_starts[r + 1] = used
+        cell_starts[r + 1] = used_cells
+        if st != CLEANED:
+            continue
+        least[r] = _least_turn_cosine(line, max(turn_base_m, turn_base_sigmas * nums[0]))
+        poly, geo, grid = _index(sm)
+        n = sm.shape[0]
+        pts = _room(pts, used, n)
+        tangents = _room(tangents, used, n)
+        has_data = _room(has_data, used, n)
+        polys = _room(polys, used, n)
+        pts[used:used + n] = sm
+        tangents[used:used + n] = tg
+        has_data[used:used + n] = data
+        polys[used:used + n] = poly
+        used += n
+        out_starts[r + 1] = used
+        nx, ny, nx2, ny2, grid_cells = grid
+        for c in range(3):
+            geos[r, c] = geo[c]
+        sizes[r, 0] = nx
+        sizes[r, 1] = ny
+        sizes[r, 2] = nx2
+        sizes[r, 3] = ny2
+        m = grid_cells.shape[0]
+        cells = _room(cells, used_cells, m)
+        cells[used_cells:used_cells + m] = grid_cells
+        used_cells += m
+        cell_starts[r + 1] = used_cells
+    return (status, numbers, least, out_starts, pts[:used].copy(), tangents[:used].copy(),
+            has_data[:used].copy(), polys[:used].copy(), geos, sizes, cell_starts,
+            cells[:used_cells].copy())

@@ -22,7 +22,7 @@ import numpy as np
 from .clean import CleanRut, clean_line
 from .errors import BadInput
 from .inference import DECIDE_AT, MAX_LOG_ODDS, WHEELBASE_MAX_M, WHEELBASE_MIN_M, PairResult
-from .reversals import Reversal, find_reversals, judge_cusp, split_at
+from .reversals import TURN_BASE_M, Reversal, find_reversals, judge_cusp, split_at
 
 #: log-odds a rear cusp with a front corner where it belongs adds to the heading: the front
 #: corner must lie one wheelbase along the cusp line; a chance match is rare.  # common practice
@@ -39,11 +39,21 @@ class Leg:
     reversals: list[Reversal] = field(default_factory=list)  # of the whole rut
 
 
-def split_into_legs(rut_index: int, rut: CleanRut, accuracy: float | None) -> list[Leg]:
+#: a rut's turn-backs are measured over chords of this many noise sigmas, at least
+#: :data:`geoops.reversals.TURN_BASE_M` (see :func:`geoops.reversals.find_reversals`)
+LEG_TURN_SIGMAS = 5.0
+#: (least base, sigmas) as :func:`geoops.clean.clean_lines` takes them
+LEG_TURN_BASE = (TURN_BASE_M, LEG_TURN_SIGMAS)
+
+
+def split_into_legs(
+    rut_index: int, rut: CleanRut, accuracy: float | None, least_cosine: float | None = None
+) -> list[Leg]:
     """Cut a cleaned rut at its reversals and clean each leg (the noise estimate of the whole
-    rut is reused, since legs can be short)."""
-    base = max(0.6, 5.0 * rut.sigma)
-    reversals = find_reversals(rut.raw_xy, base_m=base)
+    rut is reused, since legs can be short). ``least_cosine``: the quick turn-back check's
+    result when the caller has it (see :func:`geoops.clean.clean_lines`)."""
+    base = max(TURN_BASE_M, LEG_TURN_SIGMAS * rut.sigma)
+    reversals = find_reversals(rut.raw_xy, base_m=base, least_cosine=least_cosine)
     if not reversals:
         return [Leg(rut_index, 0, rut, [])]
     legs: list[Leg] = []

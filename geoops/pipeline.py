@@ -23,7 +23,7 @@ import shapely
 from . import __version__
 from .axles import TRACK_MAX_M, Side, choose_axles, join_cost, spacing
 from .chaining import chain_features
-from .clean import CleanRut, clean_line, clean_rut, join_parts
+from .clean import CleanRut, clean_lines, join_parts
 from .crosscheck import Curvature, steady_turn_wheelbase
 from .curves import Array, as_linestrings, box_neighbours
 from .errors import BadInput, CrsError
@@ -34,7 +34,7 @@ from .io import InputLayer, OutputLayer, read_layer, write_geojson, write_geopac
 from .limits import add_length
 from .order_stats import percentile_of_sorted
 from .pairing import choose_pairs
-from .passes import Leg, LegPass, assemble, logit, split_into_legs
+from .passes import LEG_TURN_BASE, Leg, LegPass, assemble, logit, split_into_legs
 from .vehicles import suggest_class
 
 CAUTION = (
@@ -411,20 +411,17 @@ def _joined(parts: list[np.ndarray]) -> tuple[np.ndarray, np.ndarray] | None:
         return None
 
 
-def _clean_one(
-    parts: list[np.ndarray], joined: tuple[np.ndarray, np.ndarray] | None, accuracy: float | None,
-    k: int,
-) -> tuple[CleanRut, list[Leg]] | str:
-    """Clean rut ``k`` (its ``joined`` line when it is one feature, else its pieces' parts) and
-    cut it into legs, or say why it cannot be used."""
+def _line_of(
+    parts: list[np.ndarray], joined: tuple[np.ndarray, np.ndarray] | None
+) -> tuple[np.ndarray, np.ndarray] | str:
+    """A rut's line to clean: its ``joined`` line when it is one feature, else its pieces'
+    parts joined; or why it cannot be used."""
+    if joined is not None:
+        return joined
     try:
-        if joined is None:
-            rut = clean_rut(parts, accuracy)
-        else:
-            rut = clean_line(joined[0], joined[1], accuracy=accuracy)
+        return join_parts(parts)
     except BadInput as exc:
         return exc.message
-    return rut, split_into_legs(k, rut, accuracy)
 
 
 def analyze_layer(
@@ -434,7 +431,8 @@ def analyze_layer(
 
     ``workers`` > 1 spreads the pair judging over that many forked processes
     (:mod:`geoops.parallel`); the result is the same as with one. Cleaning stays in this
-    process: compiled, it costs about 0.1 ms a rut, less than sending its result back would.
+    process, in as many threads (:func:`geoops.clean.clean_lines`): compiled, it costs about
+    0.1 ms a rut, less than sending its result back from another process would.
     """
     crs = resolve_crs(layer.crs, options.crs)
     xy_all = layer.all_xy()
@@ -475,14 +473,25 @@ def analyze_layer(
             + (" ..." if len(pieces_of) > 20 else "")
         )
     merged = {k for g in pieces_of.values() for k in g[1:]}
-    keys = [k for k in range(len(local)) if k not in merged]
-    for k in keys:
-        cleaned = _clean_one(local[k], joined[k], accuracies[k], k)
-        if isinstance(cleaned, str):
-            bad.append((k, cleaned))
+    keys: list[int] = []
+    lines: list[tuple[np.ndarray, np.ndarray]] = []
+    for k in range(len(local)):
+        if k in merged:
             continue
-        ruts[k] = cleaned[0]
-        legs.extend(cleaned[1])
+        line = _line_of(local[k], joined[k])
+        if isinstance(line, str):
+            bad.append((k, line))
+        else:
+            keys.append(k)
+            lines.append(line)
+    cleaned, least = clean_lines(lines, [accuracies[k] for k in keys], LEG_TURN_BASE, workers)
+    for k, rut, turn in zip(keys, cleaned, least.tolist(), strict=True):
+        if isinstance(rut, str):
+            bad.append((k, rut))
+            continue
+        ruts[k] = rut
+        legs.extend(split_into_legs(k, rut, accuracies[k], turn))
+    bad.sort()
     pairing = choose_pairs([leg.track for leg in legs], [leg.rut for leg in legs], workers)
     leg_passes = assemble(pairing.pairs, legs)
     passes: list[PassRecord] = []

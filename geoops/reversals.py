@@ -54,7 +54,9 @@ class Reversal:
         return self.turn_deg >= CUSP_TURN_DEG
 
 
-def find_reversals(xy: Array, base_m: float = TURN_BASE_M) -> list[Reversal]:
+def find_reversals(
+    xy: Array, base_m: float = TURN_BASE_M, least_cosine: float | None = None
+) -> list[Reversal]:
     """Places where a polyline turns back by more than :data:`REVERSAL_TURN_DEG`.
 
     The turn at each point is the angle between the chord arriving over ``base_m`` and the
@@ -72,8 +74,12 @@ def find_reversals(xy: Array, base_m: float = TURN_BASE_M) -> list[Reversal]:
     if len(xy) < 3:
         return []
     # most lines never turn back: one compiled pass says so (with a margin, so that what the
-    # numpy code below finds is unchanged)
-    least = kernels_clean.least_turn_cosine(np.ascontiguousarray(xy, dtype=np.float64), base_m)
+    # numpy code below finds is unchanged); ``least_cosine`` is its result when the caller
+    # has it already
+    least = least_cosine
+    if least is None:
+        least = kernels_clean.least_turn_cosine(np.ascontiguousarray(xy, dtype=np.float64),
+                                                base_m)
     if least > np.cos(np.radians(REVERSAL_TURN_DEG - 1e-6)):
         return []
     step = base_m / 8.0

@@ -171,3 +171,67 @@ def test_repeats_and_spikes_are_dropped_as_the_numpy_formulation_does(seed: int)
     joined, gaps = join_parts([xy])
     np.testing.assert_array_equal(joined, expected)
     assert not gaps.any()
+
+
+@pytest.mark.parametrize("seed", range(5))
+def test_quick_turn_check_equals_the_resampled_measurement(seed: int) -> None:
+    # the compiled pre-check walks the line without resampling it; the numpy measurement of
+    # find_reversals (chords over base_m at samples base_m / 8 apart) is the reference,
+    # on wandering lines with repeated vertices and turn-backs
+    from geoops.curves import resample
+
+    rng = np.random.default_rng(seed)
+    steps = rng.normal(0.0, 1.0, (80, 2)) + [0.6, 0.0]
+    steps[rng.integers(0, 80, 5)] = 0.0  # repeated vertices
+    steps[40:44] *= -1.0  # a turn-back
+    xy = np.cumsum(steps, axis=0)
+    for base in (0.6, 1.7):
+        pts, _ = resample(xy, base / 8.0)
+        arrive = pts[8:-8] - pts[:-16]
+        leave = pts[16:] - pts[8:-8]
+        norm = np.maximum(np.hypot(*arrive.T) * np.hypot(*leave.T), 1e-12)
+        expected = min(1.0, float(np.min(np.einsum("ij,ij->i", arrive, leave) / norm)))
+        got = kernels_clean.least_turn_cosine(np.ascontiguousarray(xy), base)
+        assert got == pytest.approx(expected, abs=1e-12)
+
+
+@pytest.mark.parametrize("workers", [1, 3])
+def test_many_lines_at_once_equal_one_at_a_time(workers: int, monkeypatch) -> None:
+    # clean_lines (one compiled call per group of lines, groups in threads) must give every
+    # line exactly what clean_line gives it: arrays, numbers, the index and the turn check
+    import geoops.clean
+    from geoops.clean import clean_lines
+    from geoops.curves import NearestOnPolyline
+
+    monkeypatch.setattr(geoops.clean, "MIN_LINES_PER_THREAD", 4)
+    rng = np.random.default_rng(7)
+    lines, accuracies = [], []
+    for r in range(24):
+        n = int(rng.integers(2, 150))
+        xy = np.cumsum(rng.normal(0.0, 0.4, (n, 2)) + [0.7, 0.0], axis=0)
+        gaps = np.zeros(n, dtype=bool)
+        if r % 5 == 0 and n > 10:
+            gaps[n // 2] = True
+        if r == 9:
+            xy[:] = xy[0]  # zero length
+        lines.append((xy, gaps))
+        accuracies.append(None if r % 3 else 0.04)
+    cleaned, least = clean_lines(lines, accuracies, (0.6, 5.0), workers)
+    for (xy, gaps), acc, rut, turn in zip(lines, accuracies, cleaned, least, strict=True):
+        try:
+            one = clean_line(xy, gaps, accuracy=acc)
+        except BadInput as exc:
+            assert rut == exc.message
+            continue
+        assert not isinstance(rut, str)
+        for name in ("xy", "has_data", "tangents", "raw_xy", "raw_gap_after"):
+            np.testing.assert_array_equal(getattr(rut, name), getattr(one, name))
+        for name in ("step", "sigma", "sigma_source", "window_m", "raw_length", "tangent_var"):
+            assert getattr(rut, name) == getattr(one, name)
+        fresh = NearestOnPolyline(rut.xy)
+        np.testing.assert_array_equal(rut.index.poly, fresh.poly)
+        assert rut.index.geo == fresh.geo and rut.index.grid[:4] == fresh.grid[:4]
+        np.testing.assert_array_equal(rut.index.grid[4], fresh.grid[4])
+        base = max(0.6, 5.0 * one.sigma)
+        assert turn == kernels_clean.least_turn_cosine(np.ascontiguousarray(xy), base)
+    assert sum(isinstance(r, str) for r in cleaned) == 1
