@@ -17,8 +17,9 @@ from __future__ import annotations
 import gc
 import multiprocessing as mp
 import os
-from collections.abc import Callable, Sequence
+from collections.abc import Callable, Iterator, Sequence
 from concurrent.futures import ThreadPoolExecutor
+from contextlib import contextmanager
 from typing import Any, TypeVar
 
 import numpy as np
@@ -53,21 +54,22 @@ def _call(args: tuple[Callable[[dict[str, Any], Any], Any], Any]) -> Any:
     return fn(_STATE, item)
 
 
-def pool_map(
-    fn: Callable[[dict[str, Any], T], R],
-    items: Sequence[T],
-    state: dict[str, Any],
-    workers: int | None,
-) -> list[R]:
-    """``[fn(state, item) for item in items]``, spread over ``workers`` forked processes.
+#: what :func:`worker_pool` yields: ``run(fn, items)`` -> ``[fn(state, item) for item in items]``
+Mapper = Callable[[Callable[[dict[str, Any], Any], Any], Sequence[Any]], list[Any]]
 
-    ``fn`` must be a module-level function (it is sent by reference); ``state`` reaches the
-    workers through the fork. ``workers`` None or 1 runs in this process.
-    """
+
+@contextmanager
+def worker_pool(state: dict[str, Any], workers: int | None, items: int) -> Iterator[Mapper]:
+    """Forked worker processes that inherit ``state``, for one or more maps over about
+    ``items`` items in all: yields ``run(fn, items)``, which returns ``[fn(state, item) for
+    item in items]`` computed in the workers (in order). ``fn`` must be a module-level
+    function (it is sent by reference). ``workers`` None or 1, or too few items, runs in
+    this process."""
     n = 1 if workers is None else max(1, int(workers))
-    n = min(n, max(1, len(items) // MIN_ITEMS_PER_WORKER))
+    n = min(n, max(1, items // MIN_ITEMS_PER_WORKER))
     if n <= 1 or not can_fork():
-        return [fn(state, item) for item in items]
+        yield lambda fn, todo: [fn(state, item) for item in todo]
+        return
     global _STATE
     _STATE = state
     # the workers' garbage collector must not walk the parent's objects: it would touch (and
@@ -75,10 +77,24 @@ def pool_map(
     gc.freeze()
     try:
         with mp.get_context("fork").Pool(n) as pool:
-            return list(pool.imap(_call, [(fn, item) for item in items], chunksize=CHUNK))
+            yield lambda fn, todo: list(
+                pool.imap(_call, [(fn, item) for item in todo], chunksize=CHUNK)
+            )
     finally:
         gc.unfreeze()
         _STATE = {}
+
+
+def pool_map(
+    fn: Callable[[dict[str, Any], T], R],
+    items: Sequence[T],
+    state: dict[str, Any],
+    workers: int | None,
+) -> list[R]:
+    """``[fn(state, item) for item in items]``, spread over ``workers`` forked processes
+    (one map of :func:`worker_pool`); ``state`` reaches the workers through the fork."""
+    with worker_pool(state, workers, len(items)) as run:
+        return run(fn, items)
 
 
 #: fewest items per thread for which threading a kernel pays for itself

@@ -34,6 +34,7 @@ from .io import InputLayer, OutputLayer, read_layer, write_geojson, write_geopac
 from .limits import add_length
 from .order_stats import percentile_of_sorted
 from .pairing import choose_pairs
+from .parallel import Mapper, worker_pool
 from .passes import LEG_TURN_BASE, Leg, LegPass, assemble, logit, split_into_legs
 from .vehicles import suggest_class
 
@@ -253,26 +254,36 @@ def _leg_labels(lp: LegPass, legs: list[Leg]) -> dict[int, tuple[str, bool | Non
     return out
 
 
-def _axle_units(leg_passes: list[LegPass], legs: list[Leg]) -> list[tuple[int, ...]]:
+def _join_cost(state: dict[str, Any], pair: tuple[int, int]) -> float | None:
+    """:func:`geoops.axles.join_cost` of two leg passes (by index), in a worker."""
+    leg_passes, legs = state["leg_passes"], state["legs"]
+    joined = join_cost(_side(leg_passes[pair[0]], legs), _side(leg_passes[pair[1]], legs))
+    return None if joined is None else joined[0]
+
+
+def _axle_units(
+    leg_passes: list[LegPass], legs: list[Leg], run: Mapper | None = None
+) -> list[tuple[int, ...]]:
     """Leg passes grouped into units: two side pairs of one four-wheeled vehicle, or one pair.
 
     Only passes without reversals are joined for now. Candidates are rear tracks within a
-    track width of each other that can be one axle (:func:`geoops.axles.join_cost`); the
-    choice is a matching over all of them (:func:`geoops.axles.choose_axles`), so that two
-    vehicles on one trail are not read as one vehicle plus two halves.
+    track width of each other that can be one axle (:func:`geoops.axles.join_cost`, measured
+    by ``run``, a :func:`geoops.parallel.worker_pool` mapper, whose state holds the
+    ``leg_passes`` and ``legs``); the choice is a matching over all of them
+    (:func:`geoops.axles.choose_axles`), so that two vehicles on one trail are not read as
+    one vehicle plus two halves.
     """
     single = [i for i, lp in enumerate(leg_passes) if lp.reversals == 0]
     costs: dict[tuple[int, int], float] = {}
     if len(single) > 1:
-        sides = {i: _side(leg_passes[i], legs) for i in single}
         # only rear tracks within a track width of each other can be two sides of one axle
-        rears = [sides[i].rear.xy for i in single]
+        rears = [legs[leg_passes[i].rear_leg].track.xy for i in single]
         left, right = box_neighbours(rears, TRACK_MAX_M)
-        for ia, ib in zip(left.tolist(), right.tolist(), strict=True):
-            a, b = single[ia], single[ib]
-            joined = join_cost(sides[a], sides[b])
-            if joined is not None:
-                costs[(a, b)] = joined[0]
+        pairs = [(single[a], single[b]) for a, b in zip(left.tolist(), right.tolist(),
+                                                         strict=True)]
+        state = {"leg_passes": leg_passes, "legs": legs}
+        found = run(_join_cost, pairs) if run else [_join_cost(state, p) for p in pairs]
+        costs = {p: c for p, c in zip(pairs, found, strict=True) if c is not None}
     units: list[tuple[int, ...]] = list(choose_axles(costs))
     used = {k for u in units for k in u}
     units.extend((i,) for i in range(len(leg_passes)) if i not in used)
@@ -321,6 +332,19 @@ def _side_evidence(lp: LegPass) -> float:
     r = lp.result
     lo = logit(r.p_follows_first)
     return lo if lp.rear_leg == lp.pair[0] or r.same_order else -lo
+
+
+def _unit_record(
+    state: dict[str, Any], numbered: tuple[int, tuple[int, ...]]
+) -> tuple[PassRecord, dict[int, tuple[str, bool | None]]]:
+    """The `passes` record of unit ``numbered = (pass id, leg pass indices)`` and the labels
+    of its ruts (:func:`_make_pass` or :func:`_make_axle_pass`), in a worker."""
+    n, unit = numbered
+    leg_passes, legs, ids = state["leg_passes"], state["legs"], state["ids"]
+    lp = leg_passes[unit[0]]
+    if len(unit) == 1:
+        return _make_pass(n, lp, legs, ids), _leg_labels(lp, legs)
+    return _make_axle_pass(n, lp, leg_passes[unit[1]], legs, ids)
 
 
 def _make_axle_pass(
@@ -502,16 +526,13 @@ def analyze_layer(
     overlapping = {
         pairing.pairs[n][:2]: extra for n, extra in pairing.overlaps.items()
     }
-    for n, unit in enumerate(_axle_units(leg_passes, legs), start=1):
-        if len(unit) == 1:
-            lp = leg_passes[unit[0]]
-            record = _make_pass(n, lp, legs, ids)
-            labels = _leg_labels(lp, legs)
-        else:
-            lp = leg_passes[unit[0]]
-            record, labels = _make_axle_pass(
-                n, leg_passes[unit[0]], leg_passes[unit[1]], legs, ids
-            )
+    # the axle candidates and the records are measured in forked workers (one fork for both)
+    state = {"leg_passes": leg_passes, "legs": legs, "ids": ids}
+    with worker_pool(state, workers, 2 * len(leg_passes)) as run:
+        units = list(enumerate(_axle_units(leg_passes, legs, run), start=1))
+        made = run(_unit_record, units)
+    for (n, unit), (record, labels) in zip(units, made, strict=True):
+        lp = leg_passes[unit[0]]
         extra = [k for u in unit for k in overlapping.get(leg_passes[u].pair, [])]
         if extra:
             _mark_overlapping(record, labels, [legs[k].rut for k in extra], ids)
