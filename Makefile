@@ -17,6 +17,9 @@ $(STAMP): pyproject.toml $(KERNELS)
 	@# numba), and compiled once into numba's cache for the fallback (see geoops/kernel_loader.py)
 	$(BIN)/python -m geoops.kernel_build
 	RUTWISE_KERNELS=jit $(BIN)/python -c "import geoops.kernels, geoops.kernels_clean"
+	@# bytecode for the editable sources, as pip writes it for an installed package: a start
+	@# with PYTHONDONTWRITEBYTECODE set would otherwise compile every module (0.05 s)
+	$(BIN)/python -m compileall -q geoops service
 	touch $(STAMP)
 
 ## make run: analyse the bundled sample layers and print a summary
