@@ -335,7 +335,7 @@ def clean_lines(
     (same as :func:`clean_line`), and the cosines.
 
     The lines go to :func:`geoops.kernels_clean.clean_tracks` a group at a time, in up to
-    ``workers`` threads (the kernel releases the GIL), groups cut by vertex count; the ruts'
+    ``workers`` threads (the kernels release the GIL), groups cut by vertex count; the ruts'
     arrays are views of the group's arrays."""
     n = len(lines)
     out: list[CleanRut | str] = ["" for _ in range(n)]
@@ -358,8 +358,7 @@ def clean_lines(
         gaps = np.ascontiguousarray(np.concatenate([lines[r][1] for r in range(lo, hi)]),
                                     dtype=np.bool_)
         starts = np.concatenate([[0], np.cumsum(sizes[lo:hi])]).astype(np.int64)
-        (status, numbers, turn, at, pts, tangents, has_data, polys, geos, grids, cell_at,
-         cells) = kernels_clean.clean_tracks(
+        status, numbers, turn, at, pts, tangents, has_data = kernels_clean.clean_tracks(
             xy, gaps, starts, np.array([sigma[r][0] for r in range(lo, hi)]), z,
             float(turn_base[0]), float(turn_base[1]))
         least[lo:hi] = turn
@@ -368,7 +367,6 @@ def clean_lines(
                 out[r] = "A rut has zero length."
                 continue
             a, b = at[g], at[g + 1]
-            nx, ny, nx2, ny2 = (int(v) for v in grids[g])
             sig, window, step, tangent_var, raw_length, _ = (float(v) for v in numbers[g])
             out[r] = CleanRut(
                 xy=pts[a:b],
@@ -382,10 +380,7 @@ def clean_lines(
                 raw_gap_after=gaps[starts[g]:starts[g + 1]],
                 tangents=tangents[a:b],
                 tangent_var=tangent_var,
-                index=NearestOnPolyline.built(
-                    pts[a:b], polys[a:b], (float(geos[g, 0]), float(geos[g, 1]),
-                                           float(geos[g, 2])),
-                    (nx, ny, nx2, ny2, cells[cell_at[g]:cell_at[g + 1]])),
+                index=NearestOnPolyline(pts[a:b]),
             )
 
     if len(cuts) == 2:

@@ -217,19 +217,6 @@ class NearestOnPolyline:
         else:
             self._s = arc_length(self.xy)
 
-    @classmethod
-    def built(
-        cls, xy: Array, poly: Array, geo: tuple[float, float, float], grid: tuple[Any, ...]
-    ) -> NearestOnPolyline:
-        """The index of a line of two or more vertices whose arrays were made already, as
-        :func:`geoops.kernels_clean.index` makes them (by
-        :func:`geoops.kernels_clean.clean_tracks`, say)."""
-        q = cls.__new__(cls)
-        q.xy = xy
-        q.poly, q.geo, q.grid = poly, geo, grid
-        q._s = poly[:, kernels.ARC]
-        return q
-
     def __getstate__(self) -> dict[str, Array]:
         # only the line: the derived arrays and bucket grids are rebuilt where they are first
         # used, which costs less than sending them between processes (they are larger than

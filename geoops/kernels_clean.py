@@ -340,7 +340,10 @@ def _tangent_variance(raw, s_raw, pts, s, sigma, window_pts, z):
 
 
 @inline
-def _clean_track(xy, gap_after, sigma_in, z):
+def _measure_line(xy, gap_after, sigma_in):
+    """Arc length, raw length (gaps left out), median vertex spacing and total length of a
+    joined line, and its noise: ``sigma_in``, or estimated when that is NaN (NaN for a line
+    of zero length)."""
     s_raw = _arc_length(xy)
     n_raw = xy.shape[0]
     raw_length = 0.0
@@ -358,9 +361,7 @@ def _clean_track(xy, gap_after, sigma_in, z):
     total = s_raw[-1]
     spacing = np.median(seg) if plain > 0 else total
     if not total > 0:
-        empty = np.empty((0, 2))
-        return (ZERO_LENGTH, empty, np.empty(0), empty, np.empty(0, dtype=np.bool_),
-                (0.0, 0.0, 0.0, 0.0, raw_length, spacing))
+        return s_raw, raw_length, spacing, total, np.nan
     sigma = sigma_in
     if math.isnan(sigma):
         w0 = _window_for(0.0, spacing, total)
@@ -370,8 +371,24 @@ def _clean_track(xy, gap_after, sigma_in, z):
         n_in_window = max(w0 / max(spacing, 1e-6), 5.0)
         noise = _median_distance(xy, sm0) / 0.6745
         sigma = noise / math.sqrt(max(1.0 - 4.0 / n_in_window, 0.2))
+    return s_raw, raw_length, spacing, total, sigma
+
+
+@inline
+def _window_and_step(sigma, spacing, total):
+    """The smoothing window of a line and the step it is resampled at."""
     window = _window_for(sigma, spacing, total)
-    step = min(max(window / 12.0, 0.02), 0.5)
+    return window, min(max(window / 12.0, 0.02), 0.5)
+
+
+@inline
+def _clean_track(xy, gap_after, sigma_in, z):
+    s_raw, raw_length, spacing, total, sigma = _measure_line(xy, gap_after, sigma_in)
+    if not total > 0:
+        empty = np.empty((0, 2))
+        return (ZERO_LENGTH, empty, np.empty(0), empty, np.empty(0, dtype=np.bool_),
+                (0.0, 0.0, 0.0, 0.0, raw_length, spacing))
+    window, step = _window_and_step(sigma, spacing, total)
     pts, s = _resample(xy, s_raw, step)
     win_pts = max(int(round(window / step)), 5)
     pos_pts = max(int(round(POSITION_WINDOW_SHARE * window / step)), 5)
@@ -382,7 +399,7 @@ def _clean_track(xy, gap_after, sigma_in, z):
     # of a gap: their local fits reach into the bridge
     has_data = np.ones(len(s), dtype=np.bool_)
     half = 0.5 * window
-    for i in range(n_raw - 1):
+    for i in range(xy.shape[0] - 1):
         if gap_after[i]:
             a = s_raw[i] - half
             b = s_raw[i + 1] + half
@@ -517,86 +534,55 @@ def tidy_part(xy, tol, passes):
     return np.ascontiguousarray(out)
 
 
-@inline
-def _room(buf, used, need):
-    """``buf`` (rows of any width) if it has room for ``need`` more rows after ``used``, else a
-    copy of its used rows in a buffer twice as large (or as large as needed)."""
-    if used + need <= buf.shape[0]:
-        return buf
-    shape = (max(2 * buf.shape[0], used + need),) + buf.shape[1:]
-    grown = np.empty(shape, dtype=buf.dtype)
-    grown[:used] = buf[:used]
-    return grown
-
-
 @compiled("Tuple((int64[::1], float64[:, ::1], float64[::1], int64[::1], float64[:, ::1], "
-          "float64[:, ::1], boolean[::1], float64[:, ::1], float64[:, ::1], int64[:, ::1], "
-          "int64[::1], int64[::1]))(float64[:, ::1], boolean[::1], int64[::1], float64[::1], "
-          "float64[:, ::1], float64, float64)")
+          "float64[:, ::1], boolean[::1]))(float64[:, ::1], boolean[::1], int64[::1], "
+          "float64[::1], float64[:, ::1], float64, float64)")
 def clean_tracks(xy, gap_after, starts, sigma_in, z, turn_base_m, turn_base_sigmas):
-    """:func:`clean_track`, :func:`index` and :func:`least_turn_cosine` for many joined lines
-    in one call: line ``r`` is ``xy[starts[r]:starts[r + 1]]`` (with its ``gap_after``) and
+    """:func:`clean_track` and :func:`least_turn_cosine` for many joined lines in one call:
+    line ``r`` is ``xy[starts[r]:starts[r + 1]]`` (with its ``gap_after``) and
     ``sigma_in[r]`` its noise (NaN: estimate it); the turn is measured over
     ``max(turn_base_m, turn_base_sigmas * sigma)``. The same numbers as those calls, one line
     after the other, without a call (and its array wrappers) per line.
 
     Returns per line the status, the six numbers of :func:`clean_track` and the least turn
-    cosine; the cleaned samples of all lines one after the other (line ``r`` from
-    ``out_starts[r]``): points, tangents, has-data, the polyline rows of :func:`index`;
-    per line its grid geometry and sizes ``(nx, ny, nx2, ny2)``; and the grids' cell arrays
-    one after the other (line ``r`` from ``cell_starts[r]``)."""
+    cosine; and the cleaned samples of all lines one after the other (line ``r`` from
+    ``out_starts[r]``): points, tangents, has-data. A first pass finds each line's noise and
+    sample count, so the outputs are allocated once, at their size (the second pass is handed
+    the noise, which gives the same numbers as estimating it again)."""
     lines = starts.shape[0] - 1
-    status = np.empty(lines, dtype=np.int64)
+    status = np.full(lines, CLEANED, dtype=np.int64)
+    sigma = np.empty(lines)
+    out_starts = np.zeros(lines + 1, dtype=np.int64)
+    for r in range(lines):
+        line = xy[starts[r]:starts[r + 1]]
+        _s, _raw, spacing, total, sigma[r] = _measure_line(
+            line, gap_after[starts[r]:starts[r + 1]], sigma_in[r])
+        count = 0
+        if total > 0:
+            _window, step = _window_and_step(sigma[r], spacing, total)
+            count = max(int(math.ceil(total / step - 1e-9)), 1) + 1  # as _resample
+        else:
+            status[r] = ZERO_LENGTH
+        out_starts[r + 1] = out_starts[r] + count
+    used = out_starts[lines]
     numbers = np.zeros((lines, 6))
     least = np.full(lines, 2.0)
-    out_starts = np.zeros(lines + 1, dtype=np.int64)
-    geos = np.zeros((lines, 3))
-    sizes = np.zeros((lines, 4), dtype=np.int64)
-    cell_starts = np.zeros(lines + 1, dtype=np.int64)
-    guess = 2 * xy.shape[0] + 16
-    pts = np.empty((guess, 2))
-    tangents = np.empty((guess, 2))
-    has_data = np.empty(guess, dtype=np.bool_)
-    polys = np.empty((guess, 7))
-    cells = np.empty(4 * guess, dtype=np.int64)
-    used = 0
-    used_cells = 0
+    pts = np.empty((used, 2))
+    tangents = np.empty((used, 2))
+    has_data = np.empty(used, dtype=np.bool_)
     for r in range(lines):
         line = xy[starts[r]:starts[r + 1]]
         st, sm, _s, tg, data, nums = _clean_track(line, gap_after[starts[r]:starts[r + 1]],
-                                                  sigma_in[r], z)
-        status[r] = st
+                                                  sigma[r], z)
         for c in range(6):
             numbers[r, c] = nums[c]
-        out_starts[r + 1] = used
-        cell_starts[r + 1] = used_cells
         if st != CLEANED:
             continue
+        a = out_starts[r]
+        if sm.shape[0] != out_starts[r + 1] - a:
+            raise ValueError("clean_tracks: a line's sample count changed between passes")
+        pts[a:a + sm.shape[0]] = sm
+        tangents[a:a + sm.shape[0]] = tg
+        has_data[a:a + sm.shape[0]] = data
         least[r] = _least_turn_cosine(line, max(turn_base_m, turn_base_sigmas * nums[0]))
-        poly, geo, grid = _index(sm)
-        n = sm.shape[0]
-        pts = _room(pts, used, n)
-        tangents = _room(tangents, used, n)
-        has_data = _room(has_data, used, n)
-        polys = _room(polys, used, n)
-        pts[used:used + n] = sm
-        tangents[used:used + n] = tg
-        has_data[used:used + n] = data
-        polys[used:used + n] = poly
-        used += n
-        out_starts[r + 1] = used
-        nx, ny, nx2, ny2, grid_cells = grid
-        for c in range(3):
-            geos[r, c] = geo[c]
-        sizes[r, 0] = nx
-        sizes[r, 1] = ny
-        sizes[r, 2] = nx2
-        sizes[r, 3] = ny2
-        m = grid_cells.shape[0]
-        cells = _room(cells, used_cells, m)
-        cells[used_cells:used_cells + m] = grid_cells
-        used_cells += m
-        cell_starts[r + 1] = used_cells
-    return (status, numbers, least, out_starts, pts[:used].copy(), tangents[:used].copy(),
-            has_data[:used].copy(), polys[:used].copy(), geos, sizes, cell_starts,
-            cells[:used_cells].copy())
+    return status, numbers, least, out_starts, pts, tangents, has_data
