@@ -4,7 +4,7 @@ The pair solver asks, tens of millions of times per large layer, for the point o
 sampled polyline nearest to a predicted front-axle position. A k-d tree answers with the
 nearest *vertex* at about 0.2 microseconds a point plus numpy's per-call cost; this kernel
 answers with the exact nearest point on the polyline, from a uniform grid of buckets over the
-line's vertices, in a fraction of that and with no per-call array temporaries.
+line's segments, in a fraction of that and with no per-call array temporaries.
 
 Exactness (the grid search): each segment is listed in every cell its bounding box overlaps,
 so after the rings of cells up to ``r`` around the query's cell have been scanned, every
