@@ -112,10 +112,15 @@ def _import_pyogrio_without_dataframes() -> None:
         sys.modules[name] = None  # type: ignore[assignment]  # import raises ImportError
     try:
         import pyogrio  # noqa: F401
+    except ImportError:
+        # a pyogrio that cannot do without them: forget what it half loaded, import it whole
+        for name in [m for m in sys.modules if m == "pyogrio" or m.startswith("pyogrio.")]:
+            del sys.modules[name]
     finally:
         for name in hidden:
             if sys.modules.get(name, ...) is None:
                 del sys.modules[name]
+    import pyogrio  # noqa: F401, F811
 
 
 def _cmd_analyze(args: argparse.Namespace) -> int:

@@ -300,3 +300,22 @@ def test_analyze_leaves_pandas_and_geopandas_importable(tmp_path: Path) -> None:
     assert proc.returncode == 0, proc.stderr
     assert proc.stdout.split() == ["False", "False", "2"]
     assert pyogrio.read_info(tmp_path / "out.gpkg", layer="passes")["features"] == 1
+
+
+def test_a_pyogrio_that_needs_pandas_is_imported_whole(tmp_path: Path) -> None:
+    # should a pyogrio ever import pandas unconditionally, hiding pandas must not break the
+    # command: the lean import falls back to the ordinary one
+    fake = tmp_path / "pyogrio"
+    fake.mkdir()
+    (fake / "__init__.py").write_text("import pandas\nfrom pyogrio import part\n")
+    (fake / "part.py").write_text("")
+    script = (
+        "import sys\nsys.path.insert(0, sys.argv[1])\nfrom geoops import cli\n"
+        "cli._import_pyogrio_without_dataframes()\n"
+        "import pyogrio\nprint(pyogrio.__file__.startswith(sys.argv[1]), 'pandas' in sys.modules,"
+        " sys.modules['pandas'] is not None)\n"
+    )
+    proc = subprocess.run([sys.executable, "-c", script, str(tmp_path)], capture_output=True,
+                          text=True, timeout=120, check=False)
+    assert proc.returncode == 0, proc.stderr
+    assert proc.stdout.split() == ["True", "True", "True"]
