@@ -13,7 +13,10 @@ inlined into kernels). Then, in this order:
 2. **Just in time.** Otherwise (no C compiler where it was installed, a kernel edited since
    the build, numpy upgraded) numba compiles the kernels when their module is imported, with
    explicit signatures and ``cache=True``: 15-30 s the first time after a change, then loaded
-   from numba's on-disk cache (``NUMBA_CACHE_DIR``, beside the module, or the user's cache).
+   from numba's on-disk cache, in a directory named by the digest of all kernel sources
+   (under ``NUMBA_CACHE_DIR``, else beside the modules): numba checks only each kernel's own
+   file, so a kernel compiled against an older version of a helper in another kernel file
+   would be loaded as it was (and crash).
 
 Both give the same numbers (``tests/test_kernel_loader.py``). ``RUTWISE_KERNELS=jit`` forces
 the second way (editing a kernel; ``NUMBA_DISABLE_JIT=1`` then runs them as plain Python for
@@ -71,6 +74,12 @@ def _choose(stamp: Path = STAMP) -> tuple[str, ModuleType | None]:
 MODE, _AOT = _choose()
 
 
+def jit_cache_dir(base: str = "") -> str:
+    """Where numba caches the kernels compiled from these sources: a directory named by their
+    digest, under ``base`` (numba's ``NUMBA_CACHE_DIR``) or beside the modules."""
+    return os.path.join(base or str(HERE / "__pycache__"), f"kernels-{source_digest()[:16]}")
+
+
 def inline(fn: Callable[..., Any]) -> Any:
     """A helper inlined into the kernels that call it (never called from Python)."""
     if MODE == "aot":
@@ -93,9 +102,16 @@ def compiled(signature: str) -> Callable[[Callable[..., Any]], Any]:
 
         if MODE == "build":
             return njit(nogil=True)(fn)  # compiled by pycc, for the signature above
+        from numba.core import config
+
+        # the cache directory of these sources (see the module's docstring), for our kernels only
+        before = config.CACHE_DIR  # type: ignore[attr-defined]  # set from the environment
+        config.CACHE_DIR = jit_cache_dir(before)  # type: ignore[attr-defined]
         try:
             return njit(signature, cache=True, nogil=True)(fn)
         except RuntimeError:  # no writable cache location
             return njit(signature, nogil=True)(fn)
+        finally:
+            config.CACHE_DIR = before  # type: ignore[attr-defined]
 
     return deco

@@ -40,7 +40,8 @@ sums = kernels.misfit_sums(base, u, n, 0.0, np.array([0.8, 1.5, 3.0]), kernels.N
     0.5, 1.0, 0.5)
 fit = kernels.newton_fit(base, u, n, 0.0, 1.2, 0.5, 3.0, True, line.poly, line.geo,
     line.grid, np.ones(len(sm), dtype=np.bool_), float(s[1] - s[0]), 0.5, 1.0, 0.5, 1e-4, 8)
-json.dump({"mode": kernel_loader.MODE, "numba": "numba" in sys.modules,
+cache = getattr(getattr(kernels.closest, "_cache", None), "_cache_path", None)
+json.dump({"mode": kernel_loader.MODE, "numba": "numba" in sys.modules, "cache": cache,
            "sm": sm.tolist(), "numbers": list(numbers), "sums": sums.tolist(),
            "fit": list(fit), "turn": kernels_clean.least_turn_cosine(xy, 0.6),
            "tidy": kernels_clean.tidy_part(xy, 1e-9, 2).tolist()}, sys.stdout)
@@ -77,6 +78,8 @@ def test_ahead_of_time_and_just_in_time_kernels_give_the_same_numbers() -> None:
     aot, jit = _probe(None), _probe("jit")
     assert (aot["mode"], jit["mode"]) == ("aot", "jit")
     assert jit["numba"] is True
+    # numba's cache of these sources lives apart from that of any other version of them
+    assert f"kernels-{kernel_loader.source_digest()[:16]}" in str(jit["cache"])
     for key in ("sm", "numbers", "sums", "fit", "turn", "tidy"):
         np.testing.assert_allclose(
             np.asarray(aot[key], dtype=float), np.asarray(jit[key], dtype=float),
