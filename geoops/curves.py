@@ -319,9 +319,11 @@ def polyline_set(indexes: list[NearestOnPolyline]) -> tuple[Any, ...]:
 
     return (
         starts([len(q.xy) for q in indexes]),
-        np.ascontiguousarray(np.concatenate([q.poly for q in indexes]), dtype=np.float64),
+        # the search reads the columns up to INV_DEN only
+        np.ascontiguousarray(np.concatenate([q.poly[:, : kernels.INV_DEN + 1] for q in indexes]),
+                             dtype=np.float64),
         np.ascontiguousarray(np.array([q.geo for q in indexes], dtype=np.float64)),
         np.ascontiguousarray(np.array([q.grid[:4] for q in indexes], dtype=np.int64)),
         starts([len(c) for c in cells]),
-        np.ascontiguousarray(np.concatenate(cells), dtype=np.int64),
+        np.ascontiguousarray(np.concatenate(cells), dtype=np.int32),
     )

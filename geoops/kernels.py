@@ -35,12 +35,13 @@ def _cell_span(a, b, origin, cell):
     return int((min(a, b) - origin) / cell), int((max(a, b) - origin) / cell)
 
 
-@compiled("Tuple((int64, int64, int64[::1], int64[::1]))(float64[::1], float64[::1], "
+@compiled("Tuple((int64, int64, int32[::1], int32[::1]))(float64[::1], float64[::1], "
            "float64, float64, float64)")
 def build_grid(x, y, x0, y0, cell):
     """Bucket the segments of the polyline of vertices ``x, y`` (two or more; ``x0, y0`` their
     least coordinates): grid size (nx, ny), CSR ``start`` offsets per cell and, in cell
-    order, the index of each segment in every cell its bounding box overlaps."""
+    order, the index of each segment in every cell its bounding box overlaps (32-bit: the
+    grids are the largest arrays a cleaned rut keeps)."""
     n = len(x)
     nx = 1
     ny = 1
@@ -51,16 +52,16 @@ def build_grid(x, y, x0, y0, cell):
             nx = cx + 1
         if cy + 1 > ny:
             ny = cy + 1
-    counts = np.zeros(nx * ny + 1, dtype=np.int64)
+    counts = np.zeros(nx * ny + 1, dtype=np.int32)
     for sg in range(n - 1):
         ax, bx = _cell_span(x[sg], x[sg + 1], x0, cell)
         ay, by = _cell_span(y[sg], y[sg + 1], y0, cell)
         for cy in range(ay, by + 1):
             for cx in range(ax, bx + 1):
                 counts[cy * nx + cx + 1] += 1
-    start = np.cumsum(counts)
+    start = np.cumsum(counts).astype(np.int32)
     fill = start[:-1].copy()
-    items = np.empty(start[-1], dtype=np.int64)
+    items = np.empty(start[-1], dtype=np.int32)
     for sg in range(n - 1):
         ax, bx = _cell_span(x[sg], x[sg + 1], x0, cell)
         ay, by = _cell_span(y[sg], y[sg + 1], y0, cell)
@@ -168,7 +169,7 @@ def _nearest(px, py, poly, geo, grid, limit):
 #: the numba types of a polyline's array and of its two bucket grids, as passed to the kernels
 _POLY = "float64[:, ::1]"
 _GEO = "UniTuple(float64, 3)"
-_GRID = "Tuple((int64, int64, int64, int64, int64[::1]))"
+_GRID = "Tuple((int64, int64, int64, int64, int32[::1]))"
 
 
 @compiled(f"Tuple((float64[::1], int64[::1], float64[::1]))(float64[:, ::1], {_POLY}, {_GEO}, "
@@ -468,7 +469,7 @@ def fit_direction(coarse_base, coarse_tangents, fine_base, fine_tangents, along,
 
 
 #: the numba types of a set of polylines (see :func:`spacing_profiles`)
-_SET = "int64[::1], float64[:, ::1], float64[:, ::1], int64[:, ::1], int64[::1], int64[::1]"
+_SET = "int64[::1], float64[:, ::1], float64[:, ::1], int64[:, ::1], int64[::1], int32[::1]"
 
 
 @compiled(f"UniTuple(float64[::1], 2)(int64[::1], int64[::1], {_SET}, int64, int64, float64, "
@@ -482,8 +483,9 @@ def spacing_profiles(first, second, vstart, polys, geos, sizes, cstart, cells, g
     Every ``len // glance``-th vertex is looked at first; when none of those is within reach
     the pair gets (0, inf) without the full profile over every ``len // samples``-th vertex.
     The set (``geoops.curves.polyline_set``) holds each line's arrays of :func:`closest`
-    concatenated: ``polys`` its rows from ``vstart``, ``geos`` one row per line, ``sizes``
-    one row of (nx, ny, nx2, ny2) per line, ``cells`` its cell array from ``cstart``."""
+    concatenated: ``polys`` its rows from ``vstart`` (the first :data:`INV_DEN` + 1 columns
+    are enough), ``geos`` one row per line, ``sizes`` one row of (nx, ny, nx2, ny2) per line,
+    ``cells`` its cell array from ``cstart``."""
     m = first.shape[0]
     shared = np.zeros(m)
     near = np.full(m, np.inf)
