@@ -282,30 +282,47 @@ def clean_line(
     """
     if len(xy) < 2:
         raise BadInput("A rut has fewer than two distinct vertices.", "Remove or fix that line.")
-    if accuracy is not None and accuracy > 0:
-        sigma_in, source = float(accuracy), "stated"
-    elif estimated_sigma is not None:
-        sigma_in, source = float(estimated_sigma), "estimated"
-    else:
-        sigma_in, source = float("nan"), "estimated"
+    sigma_in, source = _sigma_in(accuracy)
+    if source != "stated" and estimated_sigma is not None:
+        sigma_in = float(estimated_sigma)
     xy = np.ascontiguousarray(xy, dtype=np.float64)
     gap_after = np.ascontiguousarray(gap_after, dtype=np.bool_)
     status, sm, _, tangents, has_data, numbers = kernels_clean.clean_track(
         xy, gap_after, sigma_in, _standard_normals(len(xy))
     )
     if status == kernels_clean.ZERO_LENGTH:
-        raise BadInput("A rut has zero length.", "Remove or fix that line.")
-    sigma, window, step, tangent_var, raw_length, _ = numbers
+        raise BadInput(ZERO_LENGTH_MESSAGE, "Remove or fix that line.")
+    return _cleaned(sm, tangents, has_data, numbers, source, xy, gap_after)
+
+
+#: why a line of zero length cannot be cleaned
+ZERO_LENGTH_MESSAGE = "A rut has zero length."
+
+
+def _sigma_in(accuracy: float | None) -> tuple[float, str]:
+    """The noise to clean with (NaN: estimate it) and what it is, from a stated accuracy."""
+    if accuracy is not None and accuracy > 0:
+        return float(accuracy), "stated"
+    return float("nan"), "estimated"
+
+
+def _cleaned(
+    sm: Array, tangents: Array, has_data: np.ndarray, numbers: Array | tuple[float, ...],
+    source: str, raw_xy: Array, raw_gap_after: np.ndarray,
+) -> CleanRut:
+    """A CleanRut from the outputs of :func:`geoops.kernels_clean.clean_track` (or of one line
+    of ``clean_tracks``) and the line it cleaned."""
+    sigma, window, step, tangent_var, raw_length, _ = (float(v) for v in numbers)
     return CleanRut(
         xy=sm,
         step=step,
         has_data=has_data,
-        sigma=float(sigma),
+        sigma=sigma,
         sigma_source=source,
         window_m=window,
         raw_length=raw_length,
-        raw_xy=xy,
-        raw_gap_after=gap_after,
+        raw_xy=raw_xy,
+        raw_gap_after=raw_gap_after,
         tangents=tangents,
         tangent_var=tangent_var,
         index=NearestOnPolyline(sm),
@@ -314,12 +331,6 @@ def clean_line(
 
 #: fewest lines per thread for which :func:`clean_lines` starts threads
 MIN_LINES_PER_THREAD = 64
-
-
-def _sigma_in(accuracy: float | None) -> tuple[float, str]:
-    if accuracy is not None and accuracy > 0:
-        return float(accuracy), "stated"
-    return float("nan"), "estimated"
 
 
 def clean_lines(
@@ -364,24 +375,11 @@ def clean_lines(
         least[lo:hi] = turn
         for g, r in enumerate(range(lo, hi)):
             if status[g] == kernels_clean.ZERO_LENGTH:
-                out[r] = "A rut has zero length."
+                out[r] = ZERO_LENGTH_MESSAGE
                 continue
             a, b = at[g], at[g + 1]
-            sig, window, step, tangent_var, raw_length, _ = (float(v) for v in numbers[g])
-            out[r] = CleanRut(
-                xy=pts[a:b],
-                step=step,
-                has_data=has_data[a:b],
-                sigma=sig,
-                sigma_source=sigma[r][1],
-                window_m=window,
-                raw_length=raw_length,
-                raw_xy=xy[starts[g]:starts[g + 1]],
-                raw_gap_after=gaps[starts[g]:starts[g + 1]],
-                tangents=tangents[a:b],
-                tangent_var=tangent_var,
-                index=NearestOnPolyline(pts[a:b]),
-            )
+            out[r] = _cleaned(pts[a:b], tangents[a:b], has_data[a:b], numbers[g], sigma[r][1],
+                              xy[starts[g]:starts[g + 1]], gaps[starts[g]:starts[g + 1]])
 
     if len(cuts) == 2:
         clean_group(0, n)
