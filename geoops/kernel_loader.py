@@ -31,6 +31,7 @@ import importlib
 import os
 import sys
 from collections.abc import Callable
+from functools import cache
 from pathlib import Path
 from types import ModuleType
 from typing import Any
@@ -74,9 +75,11 @@ def _choose(stamp: Path = STAMP) -> tuple[str, ModuleType | None]:
 MODE, _AOT = _choose()
 
 
+@cache
 def jit_cache_dir(base: str = "") -> str:
     """Where numba caches the kernels compiled from these sources: a directory named by their
-    digest, under ``base`` (numba's ``NUMBA_CACHE_DIR``) or beside the modules."""
+    digest, under ``base`` (numba's ``NUMBA_CACHE_DIR``) or beside the modules. Worked out
+    once, not for every kernel."""
     return os.path.join(base or str(HERE / "__pycache__"), f"kernels-{source_digest()[:16]}")
 
 

@@ -440,6 +440,17 @@ def newton_fit(base, u, nrm, shift0, start, lo, hi, free_shift, poly, geo, grid,
                        step, edge, cap2, shift_max, tvar, need)
 
 
+@inline
+def _travel_and_left(along, tangents):
+    """Unit vectors of travel (``along`` = +1 or -1 times the ``tangents``) and a quarter turn
+    to their left."""
+    u = along * tangents
+    n = np.empty_like(u)
+    n[:, 0] = -u[:, 1]
+    n[:, 1] = u[:, 0]
+    return u, n
+
+
 @compiled(f"UniTuple(float64, 4)(float64[:, ::1], float64[:, ::1], float64[:, ::1], "
           f"float64[:, ::1], float64, float64[::1], {_POLY}, {_GEO}, {_GRID}, boolean[::1], "
           f"float64, float64, float64, float64, float64, int64, int64)")
@@ -450,19 +461,13 @@ def fit_direction(coarse_base, coarse_tangents, fine_base, fine_tangents, along,
     the grid ``lengths`` (:func:`_best_on_grid`), the fine ones refine it between the grid
     neighbours (:func:`newton_fit`). Returns (wheelbase, mse, samples used, shift), NaN and
     inf when no grid wheelbase has enough samples."""
-    coarse_u = along * coarse_tangents
-    coarse_n = np.empty_like(coarse_u)
-    coarse_n[:, 0] = -coarse_u[:, 1]
-    coarse_n[:, 1] = coarse_u[:, 0]
+    coarse_u, coarse_n = _travel_and_left(along, coarse_tangents)
     j, _mse = _best_on_grid(coarse_base, coarse_u, coarse_n, 0.0, lengths, poly, geo, grid,
                             usable, step, edge, cap2, tvar, coarse_need)
     if j < 0:
         return np.nan, np.inf, 0.0, 0.0
     k = lengths.shape[0]
-    fine_u = along * fine_tangents
-    fine_n = np.empty_like(fine_u)
-    fine_n[:, 0] = -fine_u[:, 1]
-    fine_n[:, 1] = fine_u[:, 0]
+    fine_u, fine_n = _travel_and_left(along, fine_tangents)
     return _newton_fit(fine_base, fine_u, fine_n, 0.0, lengths[j], lengths[max(j - 1, 0)],
                        lengths[min(j + 1, k - 1)], False, poly, geo, grid, usable, step, edge,
                        cap2, shift_max, tvar, fine_need)

@@ -66,10 +66,16 @@ def _arc_length(xy):
 
 
 @inline
+def _intervals(total, step):
+    """How many equal intervals :func:`_resample` cuts a line of length ``total`` into."""
+    return max(int(math.ceil(total / step - 1e-9)), 1)
+
+
+@inline
 def _resample(xy, s_raw, step):
     """:func:`geoops.curves.resample` of ``xy`` (arc length ``s_raw``): points and positions."""
     total = s_raw[-1]
-    n = max(int(math.ceil(total / step - 1e-9)), 1)
+    n = _intervals(total, step)
     s = np.linspace(0.0, total, n + 1)
     s0 = s_raw.copy()
     for i in range(1, len(s0)):
@@ -433,7 +439,7 @@ def _least_turn_cosine(xy, base_m):
     k = 8
     s_raw = _arc_length(xy)
     total = s_raw[-1]
-    n = max(int(math.ceil(total / (base_m / k) - 1e-9)), 1)
+    n = _intervals(total, base_m / k)
     if n + 1 < 2 * k + 1:
         return 2.0
     size = 2 * k + 1
@@ -560,7 +566,7 @@ def clean_tracks(xy, gap_after, starts, sigma_in, z, turn_base_m, turn_base_sigm
         count = 0
         if total > 0:
             _window, step = _window_and_step(sigma[r], spacing, total)
-            count = max(int(math.ceil(total / step - 1e-9)), 1) + 1  # as _resample
+            count = _intervals(total, step) + 1  # the samples _resample gives
         else:
             status[r] = ZERO_LENGTH
         out_starts[r + 1] = out_starts[r] + count
